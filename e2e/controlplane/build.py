@@ -115,7 +115,9 @@ def ensure_built() -> Binaries:
     if all(p.exists() for p in bins.all()):
         return bins
     if shutil.which("go") is None:
-        raise RuntimeError("the Go toolchain is needed to build the control plane: `go` is not on PATH")
+        raise RuntimeError(
+            "the Go toolchain is needed to build the control plane: `go` is not on PATH"
+        )
     d = bin_dir()
     d.mkdir(parents=True, exist_ok=True)
     with open(d / ".build.lock", "w") as lock:

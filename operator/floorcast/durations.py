@@ -51,7 +51,7 @@ def parse_duration(text: str, *, field: str = "duration", allow_zero: bool = Fal
 
 def format_duration(d: timedelta) -> str:
     """Render the shortest Go-style string, for messages and round-tripping."""
-    secs = int(round(d.total_seconds()))
+    secs = round(d.total_seconds())
     if secs == 0:
         return "0s"
     out = []

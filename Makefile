@@ -1,0 +1,40 @@
+# floorcast developer entry points. The README's two commands are `make demo` and
+# `make test`; both work on a fresh machine (they create .venv and install into it).
+PYTHON ?= python3
+VENV ?= .venv
+BIN := $(VENV)/bin
+
+.PHONY: demo test unit e2e lint controlplane bench clean
+
+$(BIN)/.installed: pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[dev]'
+	touch $@
+
+## demo: run floorcast on the built-in demo shop
+demo: $(BIN)/.installed
+	$(BIN)/floorcast demo
+
+## test: lint, build (or reuse) the control plane, run unit and e2e tests
+test: lint controlplane
+	$(BIN)/pytest
+
+unit: $(BIN)/.installed
+	$(BIN)/pytest tests
+
+e2e: controlplane
+	$(BIN)/pytest e2e
+
+lint: $(BIN)/.installed
+	$(BIN)/ruff check operator tests e2e
+
+## controlplane: build etcd, kube-apiserver, kube-controller-manager, kubectl once
+controlplane: $(BIN)/.installed
+	$(BIN)/python -m e2e.controlplane build
+
+bench: $(BIN)/.installed
+	$(BIN)/python tests/perf/bench_planning.py
+
+clean:
+	rm -rf $(VENV) .pytest_cache .ruff_cache .hypothesis floorcast-demo

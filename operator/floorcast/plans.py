@@ -1,0 +1,183 @@
+"""Glue between a parsed policy, a forecast and the HPA's bounds, and the pure planner.
+
+The CLI's ``plan``, the operator's reconcile and the backtest all need the same
+translation (which band to plan on, which events apply, what the lower bound and
+ceiling are); keeping it in one place means a preview and the operator can never
+disagree about what a policy implies.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from floorcast.core import planning
+from floorcast.core.series import Series
+from floorcast.errors import InputError
+from floorcast.policy import PolicySpec
+from floorcast.timefmt import iso
+
+
+@dataclass(frozen=True)
+class Bounds:
+    """What clamps the floor: the owner's baseline and the HPA's/policy's maximum."""
+
+    lower: int
+    ceiling: int
+    baseline: int
+    hpa_max: int
+
+
+def bounds_for(spec: PolicySpec, *, baseline: int, hpa_max: int) -> Bounds:
+    """lower = max(baseline, policy min); ceiling = min(policy max, HPA max).
+
+    The baseline wins if the ceiling would be below it: floorcast never lowers what
+    the owner set (DESIGN.md), and never raises anything above the HPA's maximum
+    except in that one case where the owner's own minimum already is.
+    """
+    if baseline < 1:
+        raise InputError(f"baseline must be >= 1, got {baseline}")
+    if hpa_max < 1:
+        raise InputError(f"HPA maxReplicas must be >= 1, got {hpa_max}")
+    # A policy minimum above the HPA's maximum would make an invalid HPA (min > max).
+    lower = max(baseline, min(spec.min_replicas or 0, hpa_max))
+    ceiling = min(spec.max_replicas or hpa_max, hpa_max)
+    return Bounds(lower=lower, ceiling=max(ceiling, baseline), baseline=baseline, hpa_max=hpa_max)
+
+
+def planning_load(spec: PolicySpec, forecast: Series) -> np.ndarray:
+    """The forecast the floor is sized on: the upper band when the policy asks and it exists."""
+    if spec.use_upper_bound and forecast.upper is not None:
+        return np.asarray(forecast.upper, dtype=np.float64)
+    return np.asarray(forecast.values, dtype=np.float64)
+
+
+def policy_event_factors(spec: PolicySpec, times: pd.DatetimeIndex) -> np.ndarray:
+    events = [(e.start, e.end, e.factor) for e in spec.planned_events]
+    return planning.event_factors(times, [events])[0]
+
+
+@dataclass(frozen=True)
+class Change:
+    """One floor change, with what caused it (for rises) so Events can say why."""
+
+    at: pd.Timestamp
+    old: int
+    new: int
+    cause_at: pd.Timestamp | None
+    cause_load: float | None
+
+    def to_json(self) -> dict[str, Any]:
+        out: dict[str, Any] = {"at": iso(self.at), "from": self.old, "to": self.new}
+        if self.cause_at is not None:
+            out["cause_at"] = iso(self.cause_at)
+            out["cause_load"] = self.cause_load
+        return out
+
+
+@dataclass(frozen=True)
+class FloorPlan:
+    """One policy's plan: the floor at ``at``, and every change after it."""
+
+    spec: PolicySpec
+    forecast: Series
+    schedule: planning.Schedule
+    bounds: Bounds
+    per_replica: float
+    at: pd.Timestamp
+    floor_now: int
+    changes: list[Change]
+
+    @property
+    def next_change(self) -> Change | None:
+        return self.changes[0] if self.changes else None
+
+    @property
+    def peak_required(self) -> int:
+        return int(self.schedule.required[0].max())
+
+    def to_json(self) -> dict[str, Any]:
+        nxt = self.next_change
+        return {
+            "at": iso(self.at),
+            "floor_now": self.floor_now,
+            "next_change": nxt.to_json() if nxt else None,
+            "changes": [c.to_json() for c in self.changes],
+            "baseline": self.bounds.baseline,
+            "lower": self.bounds.lower,
+            "ceiling": self.bounds.ceiling,
+            "per_replica": self.per_replica,
+            "forecast": {
+                "start": iso(self.forecast.start),
+                "end": iso(self.forecast.end),
+                "step_seconds": self.forecast.step.total_seconds(),
+                "generated": iso(self.forecast.generated) if self.forecast.generated else None,
+                "covered_until": iso(
+                    self.schedule.start + (int(self.schedule.covered[0]) - 1) * self.schedule.step
+                ),
+            },
+        }
+
+
+def plan_policy(
+    spec: PolicySpec,
+    forecast: Series,
+    *,
+    baseline: int,
+    hpa_max: int,
+    at: pd.Timestamp,
+    per_replica: float | None = None,
+) -> FloorPlan:
+    """Plan one policy on one forecast; raises InputError when it cannot be decided."""
+    cap = per_replica if per_replica is not None else spec.capacity.per_replica
+    if cap is None:
+        raise InputError(
+            "capacity.fromHPA needs the HPA's CPU target and the pods' CPU requests; "
+            "pass --per-replica to preview without a cluster"
+        )
+    bounds = bounds_for(spec, baseline=baseline, hpa_max=hpa_max)
+    times = forecast.times
+    try:
+        schedule = planning.plan(
+            forecast.start,
+            forecast.step,
+            planning_load(spec, forecast)[None, :],
+            per_replica=cap,
+            headroom=spec.headroom,
+            lead=pd.Timedelta(spec.lead_time),
+            hold=pd.Timedelta(spec.hold_time),
+            lower=bounds.lower,
+            ceiling=bounds.ceiling,
+            event_factor=policy_event_factors(spec, times)[None, :],
+        )
+        i = schedule.check_covers(at, [pd.Timedelta(spec.lead_time)])
+    except planning.PlanningError as e:
+        raise InputError(str(e), source=forecast.source) from None
+    load = planning_load(spec, forecast)
+    ch = schedule.changes.for_workload(0)
+    changes = []
+    for idx, old, new, cause in zip(ch.index, ch.old, ch.new, ch.cause_index, strict=True):
+        if idx <= i or idx >= schedule.covered[0]:
+            continue
+        changes.append(
+            Change(
+                at=times[idx],
+                old=int(old),
+                new=int(new),
+                cause_at=times[cause] if cause >= 0 else None,
+                cause_load=float(load[cause]) if cause >= 0 else None,
+            )
+        )
+    return FloorPlan(
+        spec=spec,
+        forecast=forecast,
+        schedule=schedule,
+        bounds=bounds,
+        per_replica=float(cap),
+        at=pd.Timestamp(at),
+        floor_now=int(schedule.floor[0, i]),
+        changes=changes,
+    )

@@ -1,0 +1,409 @@
+"""The ``ForecastScalingPolicy`` model: parsed and validated once, trusted everywhere after.
+
+The CLI reads the YAML ``kubectl apply`` takes, the operator gets the object from the API
+server as a dict; both go through ``parse_policy``, so a policy that previews cleanly with
+``floorcast plan`` behaves the same once applied. A typo here silently changes production
+capacity, so validation is strict and names the file and field (``spec.headroom``).
+
+Decisions (the CRD schema mirrors them):
+
+* ``leadTime`` and ``forecast.maxAge`` must be > 0 (a floor raised with no lead cannot
+  serve in time; a zero max age rejects every forecast); ``holdTime`` may be ``0s``
+  (drop the floor once the need has passed); zero is ``0s``, as DURATION_PATTERN wants.
+* ``targetRef`` may carry ``kind: HorizontalPodAutoscaler`` / ``apiVersion:
+  autoscaling/v2``, as generated object references do; anything else is rejected.
+* An explicit ``null`` for an optional field means "not set", as with ``kubectl apply``.
+* YAML timestamps stay strings, so event times are RFC 3339 with an offset whether they
+  came from a file or the API server; duplicate YAML keys are errors, not last-wins.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from datetime import timedelta
+from pathlib import Path
+from typing import Any, Literal, NoReturn, cast
+from urllib.parse import urlsplit
+
+import pandas as pd
+import yaml
+
+from floorcast.durations import format_duration, parse_duration
+from floorcast.errors import InputError
+
+API_VERSION = "floorcast.dev/v1alpha1"
+KIND = "ForecastScalingPolicy"
+Mode = Literal["DryRun", "Enforce"]
+MODES: tuple[Mode, ...] = ("DryRun", "Enforce")
+
+DEFAULT_MAX_AGE = timedelta(hours=6)
+DEFAULT_LEAD_TIME = timedelta(minutes=5)
+DEFAULT_HOLD_TIME = timedelta(minutes=15)
+DEFAULT_HEADROOM = 0.1
+DEFAULT_USE_UPPER_BOUND = True
+DEFAULT_MODE: Mode = "DryRun"
+DEFAULT_NAMESPACE = "default"
+
+# ObjectMeta fields, so a manifest exported with ``kubectl get -o yaml`` still parses.
+_METADATA_FIELDS = (
+    "name", "namespace", "uid", "generation", "labels", "annotations", "resourceVersion",
+    "creationTimestamp", "deletionTimestamp", "deletionGracePeriodSeconds", "finalizers",
+    "ownerReferences", "managedFields", "generateName", "selfLink",
+)  # fmt: skip
+_SPEC_FIELDS = (
+    "targetRef", "forecast", "capacity", "leadTime", "holdTime", "headroom",
+    "useUpperBound", "minReplicas", "maxReplicas", "mode", "plannedEvents",
+)  # fmt: skip
+_DNS_SUBDOMAIN = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$")
+_DNS_LABEL = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?$")
+_CONFIGMAP_KEY = re.compile(r"^[-._a-zA-Z0-9]+$")
+_RFC3339 = re.compile(r"^\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d+)?([Zz]|[+-]\d{2}:\d{2})$")
+
+
+class PolicyError(InputError):
+    """A policy mistake; ``path`` and ``line`` let the operator put it in a condition."""
+
+    def __init__(self, problem: str, *, source: str | None = None, path: str | None = None,
+                 line: int | None = None):  # fmt: skip
+        self.path = path
+        self.line = line
+        where = (f"line {line}: " if line is not None else "") + (f"{path}: " if path else "")
+        super().__init__(where + problem, source=source)
+
+
+@dataclass(frozen=True)
+class ConfigMapRef:
+    name: str
+    key: str
+
+
+@dataclass(frozen=True)
+class ForecastSource:
+    """Exactly one of the two sources is set; a forecast older than ``max_age`` is missing."""
+
+    config_map_ref: ConfigMapRef | None
+    url: str | None
+    max_age: timedelta = DEFAULT_MAX_AGE
+
+
+@dataclass(frozen=True)
+class Capacity:
+    per_replica: float | None
+    from_hpa: bool
+
+
+@dataclass(frozen=True)
+class PlannedEvent:
+    """A known window; ``start``/``end`` are UTC so the planner never mixes offsets."""
+
+    name: str
+    start: pd.Timestamp
+    end: pd.Timestamp
+    factor: float
+
+
+@dataclass(frozen=True)
+class PolicySpec:
+    target_name: str
+    forecast: ForecastSource
+    capacity: Capacity
+    lead_time: timedelta = DEFAULT_LEAD_TIME
+    hold_time: timedelta = DEFAULT_HOLD_TIME
+    headroom: float = DEFAULT_HEADROOM
+    use_upper_bound: bool = DEFAULT_USE_UPPER_BOUND
+    min_replicas: int | None = None
+    max_replicas: int | None = None
+    mode: Mode = DEFAULT_MODE
+    planned_events: tuple[PlannedEvent, ...] = ()
+
+
+@dataclass(frozen=True)
+class Policy:
+    """``generation`` and ``uid`` come only from the API server (observedGeneration, events)."""
+
+    name: str
+    namespace: str
+    spec: PolicySpec
+    generation: int | None = None
+    uid: str | None = None
+
+
+def spec_defaults() -> dict[str, Any]:
+    """The defaults in CRD-schema shape, so a test can hold the CRD and this module together."""
+    return {
+        "forecast": {"maxAge": format_duration(DEFAULT_MAX_AGE)},
+        "leadTime": format_duration(DEFAULT_LEAD_TIME),
+        "holdTime": format_duration(DEFAULT_HOLD_TIME),
+        "headroom": DEFAULT_HEADROOM,
+        "useUpperBound": DEFAULT_USE_UPPER_BOUND,
+        "mode": DEFAULT_MODE,
+    }
+
+
+def _describe(value: object) -> str:
+    if value is None or isinstance(value, bool):
+        return "null" if value is None else f"boolean {str(value).lower()}"
+    if isinstance(value, int | float | str):
+        return f"{'string' if isinstance(value, str) else 'number'} {value!r}"
+    if isinstance(value, Mapping):
+        return "a mapping"
+    return "a list" if isinstance(value, list | tuple) else type(value).__name__
+
+
+_M = Mapping[str, Any]
+_Rule = tuple[re.Pattern[str], str]
+_REQUIRED: Any = object()
+_NAME: _Rule = (_DNS_SUBDOMAIN, "a Kubernetes object name (lower-case letters, digits, '-', '.')")
+
+
+@dataclass(frozen=True)
+class _Reader:
+    """Getters take a mapping and the field's full path (the last part is the key), so every
+    check is one call; they return ``default`` for an absent or null field."""
+
+    source: str
+
+    def fail(self, path: str, problem: str) -> NoReturn:
+        raise PolicyError(problem, source=self.source, path=path)
+
+    def mapping(self, value: object, path: str, allowed: Sequence[str]) -> _M:
+        if not isinstance(value, Mapping):
+            self.fail(path, f"expected a mapping, got {_describe(value)}")
+        for key in value:
+            if key not in allowed:
+                hint = difflib.get_close_matches(str(key), allowed, n=1)
+                maybe = f" (did you mean {hint[0]!r}?)" if hint else ""
+                where, fields = f"{path}.{key}".lstrip("."), ", ".join(sorted(allowed))
+                self.fail(where, f"unknown field{maybe}; allowed here: {fields}")
+        return cast(_M, value)
+
+    def take(self, m: _M, path: str, default: Any = _REQUIRED) -> Any:
+        value = m.get(path.rpartition(".")[2])
+        if value is None and default is _REQUIRED:
+            self.fail(path, "required field is missing")
+        return value
+
+    def child(self, m: _M, path: str, allowed: Sequence[str]) -> _M:
+        return self.mapping(self.take(m, path), path, allowed)
+
+    def string(self, m: _M, path: str, rule: _Rule | None = None, default: Any = _REQUIRED) -> Any:
+        value = self.take(m, path, default)
+        if value is None:
+            return default
+        if not isinstance(value, str) or not value.strip():
+            self.fail(path, f"expected a non-empty string, got {_describe(value)}")
+        if rule is not None and not rule[0].match(value):
+            self.fail(path, f"{value!r} is not valid; expected {rule[1]}")
+        return value
+
+    def number(self, m: _M, path: str, *, above: float, inclusive: bool = False,
+               default: Any = _REQUIRED) -> Any:  # fmt: skip
+        value = self.take(m, path, default)
+        if value is None:
+            return default
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            self.fail(path, f"expected a number, got {_describe(value)}")
+        if not math.isfinite(value) or value < above or (value == above and not inclusive):
+            op = ">=" if inclusive else ">"
+            self.fail(path, f"expected a finite number {op} {above:g}, got {value!r}")
+        return float(value)
+
+    def integer(self, m: _M, path: str, *, minimum: int) -> int | None:
+        value = self.take(m, path, None)
+        if value is not None and (type(value) is not int or value < minimum):
+            self.fail(path, f"expected an integer >= {minimum}, got {_describe(value)}")
+        return value
+
+    def boolean(self, m: _M, path: str, default: bool) -> bool:
+        value = self.take(m, path, default)
+        if value is not None and not isinstance(value, bool):
+            self.fail(path, f"expected true or false, got {_describe(value)}")
+        return default if value is None else value
+
+    def duration(self, m: _M, path: str, *, default: timedelta, allow_zero: bool) -> timedelta:
+        value = self.take(m, path, default)
+        if value is None:
+            return default
+        try:
+            return parse_duration(value, field=path, allow_zero=allow_zero)
+        except InputError as e:
+            self.fail(path, e.problem.removeprefix(f"{path}: "))
+
+    def timestamp(self, m: _M, path: str) -> pd.Timestamp:
+        value = self.take(m, path)
+        if not isinstance(value, str) or not _RFC3339.match(value):
+            example = "'2025-11-28T06:00:00Z'"
+            self.fail(path, f"expected an RFC 3339 time with offset such as {example}, "
+                            f"got {_describe(value)}")  # fmt: skip
+        try:
+            return pd.Timestamp(value.upper()).tz_convert("UTC")
+        except ValueError:
+            self.fail(path, f"{value!r} is not a real date and time")
+
+
+def parse_spec(spec: _M, *, source: str = "policy") -> PolicySpec:
+    """Validate a bare ``spec``, for operator handlers that only hold the spec."""
+    r = _Reader(source)
+    s = r.mapping(spec, "spec", _SPEC_FIELDS)
+    target = r.child(s, tp := "spec.targetRef", ("name", "kind", "apiVersion"))
+    for key, only in (("kind", "HorizontalPodAutoscaler"), ("apiVersion", "autoscaling/v2")):
+        if target.get(key) is not None and target[key] != only:
+            r.fail(f"{tp}.{key}", f"got {_describe(target[key])}; only {only!r} is supported")
+    low = r.integer(s, "spec.minReplicas", minimum=1)
+    high = r.integer(s, "spec.maxReplicas", minimum=1)
+    if low is not None and high is not None and high < low:
+        r.fail("spec.maxReplicas", f"{high} is less than spec.minReplicas ({low}); "
+                                   "expected maxReplicas >= minReplicas")  # fmt: skip
+    mode = DEFAULT_MODE if s.get("mode") is None else s["mode"]
+    if mode not in MODES:
+        near = [m for m in MODES if isinstance(mode, str) and m.lower() == mode.lower()]
+        hint = f" (did you mean {near[0]!r}? case matters)" if near else ""
+        r.fail("spec.mode", f"got {_describe(mode)}{hint}; expected one of {', '.join(MODES)}")
+    return PolicySpec(
+        target_name=r.string(target, f"{tp}.name", _NAME),
+        forecast=_forecast(r, s),
+        capacity=_capacity(r, s),
+        lead_time=r.duration(s, "spec.leadTime", default=DEFAULT_LEAD_TIME, allow_zero=False),
+        hold_time=r.duration(s, "spec.holdTime", default=DEFAULT_HOLD_TIME, allow_zero=True),
+        headroom=r.number(s, "spec.headroom", above=0, inclusive=True, default=DEFAULT_HEADROOM),
+        use_upper_bound=r.boolean(s, "spec.useUpperBound", DEFAULT_USE_UPPER_BOUND),
+        min_replicas=low,
+        max_replicas=high,
+        mode=cast(Mode, mode),
+        planned_events=_events(r, s.get("plannedEvents"), "spec.plannedEvents"),
+    )
+
+
+def _forecast(r: _Reader, s: _M) -> ForecastSource:
+    f = r.child(s, p := "spec.forecast", ("configMapRef", "url", "maxAge"))
+    ref = None
+    if f.get("configMapRef") is not None:
+        c = r.child(f, cp := f"{p}.configMapRef", ("name", "key"))
+        key_rule = (_CONFIGMAP_KEY, "a ConfigMap key (letters, digits, '-', '_', '.')")
+        ref = ConfigMapRef(r.string(c, f"{cp}.name", _NAME), r.string(c, f"{cp}.key", key_rule))
+    url = r.string(f, f"{p}.url", default=None)
+    if url is not None:
+        try:
+            parts = urlsplit(url)
+            usable = parts.scheme in ("http", "https") and bool(parts.hostname)
+        except ValueError:
+            usable = False
+        if not usable:
+            r.fail(f"{p}.url", f"{url!r} is not usable; expected an http(s):// URL with a host")
+    if (ref is None) == (url is None):
+        r.fail(p, f"set exactly one of configMapRef or url, not {'both' if ref else 'neither'}")
+    max_age = r.duration(f, f"{p}.maxAge", default=DEFAULT_MAX_AGE, allow_zero=False)
+    return ForecastSource(config_map_ref=ref, url=url, max_age=max_age)
+
+
+def _capacity(r: _Reader, s: _M) -> Capacity:
+    c = r.child(s, p := "spec.capacity", ("perReplica", "fromHPA"))
+    per_replica = r.number(c, f"{p}.perReplica", above=0, default=None)
+    from_hpa = r.boolean(c, f"{p}.fromHPA", False)
+    if (per_replica is not None) == from_hpa:
+        which = "both" if from_hpa else "neither"
+        r.fail(p, f"set exactly one of perReplica (a number > 0) or fromHPA: true, not {which}")
+    return Capacity(per_replica=per_replica, from_hpa=from_hpa)
+
+
+def _events(r: _Reader, value: object, p: str) -> tuple[PlannedEvent, ...]:
+    if value is None:
+        return ()
+    if not isinstance(value, list | tuple):
+        r.fail(p, f"expected a list of events, got {_describe(value)}")
+    events: list[PlannedEvent] = []
+    seen: dict[str, int] = {}
+    for i, item in enumerate(value):
+        e = r.mapping(item, ep := f"{p}[{i}]", ("name", "start", "end", "factor"))
+        name = r.string(e, f"{ep}.name")
+        if name in seen:
+            r.fail(f"{ep}.name", f"{name!r} is already used by {p}[{seen[name]}]; "
+                                 "event names must be unique")  # fmt: skip
+        seen[name] = i
+        start, end = r.timestamp(e, f"{ep}.start"), r.timestamp(e, f"{ep}.end")
+        if end <= start:
+            r.fail(f"{ep}.end", f"{end.isoformat()} is not after start {start.isoformat()}; "
+                                "expected end > start")  # fmt: skip
+        factor = r.number(e, f"{ep}.factor", above=0)
+        events.append(PlannedEvent(name=name, start=start, end=end, factor=factor))
+    return tuple(events)
+
+
+def parse_policy(doc: _M, *, source: str = "policy") -> Policy:
+    """The one entry point for a whole object, whether from a file or from the API server."""
+    r = _Reader(source)
+    d = r.mapping(doc, "", ("apiVersion", "kind", "metadata", "spec", "status"))
+    for key, expected in (("apiVersion", API_VERSION), ("kind", KIND)):
+        if d.get(key) != expected:
+            r.fail(key, f"got {_describe(d.get(key))}; expected {expected!r}")
+    meta = r.child(d, "metadata", _METADATA_FIELDS)
+    ns_rule = (_DNS_LABEL, "a namespace name (lower-case letters, digits, '-')")
+    return Policy(
+        name=r.string(meta, "metadata.name", _NAME),
+        namespace=r.string(meta, "metadata.namespace", ns_rule, DEFAULT_NAMESPACE),
+        spec=parse_spec(r.take(d, "spec"), source=source),
+        generation=r.integer(meta, "metadata.generation", minimum=0),
+        uid=r.string(meta, "metadata.uid", default=None),
+    )
+
+
+class _Loader(yaml.SafeLoader):
+    """Safe YAML that keeps timestamps as text and refuses duplicate keys."""
+
+
+_Loader.yaml_implicit_resolvers = {
+    first: [(tag, rx) for tag, rx in resolvers if tag != "tag:yaml.org,2002:timestamp"]
+    for first, resolvers in yaml.SafeLoader.yaml_implicit_resolvers.items()
+}
+
+
+def _construct_mapping(loader: _Loader, node: yaml.MappingNode) -> dict[Any, Any]:
+    seen: set[tuple[str, str]] = set()
+    for key, _ in node.value:
+        if isinstance(key, yaml.ScalarNode) and key.value != "<<":
+            if (key.tag, key.value) in seen:
+                problem = f"duplicate key {key.value!r}"
+                raise yaml.constructor.ConstructorError(None, None, problem, key.start_mark)
+            seen.add((key.tag, key.value))
+    return loader.construct_mapping(node)
+
+
+_Loader.add_constructor(yaml.resolver.BaseResolver.DEFAULT_MAPPING_TAG, _construct_mapping)
+
+
+def load_policy_text(text: str, *, source: str) -> Policy:
+    """Pick the policy out of a manifest, which may also hold the HPA and friends."""
+    try:
+        docs = [d for d in yaml.load_all(text, Loader=_Loader) if d is not None]
+    except yaml.YAMLError as e:
+        mark = getattr(e, "problem_mark", None)
+        line = mark.line + 1 if mark else None
+        problem = getattr(e, "problem", None) or e
+        raise PolicyError(f"invalid YAML: {problem}", source=source, line=line) from None
+    for i, d in enumerate(docs, start=1):
+        if not isinstance(d, Mapping):
+            raise PolicyError(f"document {i} is {_describe(d)}; expected a mapping", source=source)
+    found = [d for d in docs if d.get("kind") == KIND]
+    if len(found) != 1:
+        kinds = ", ".join(str(d.get("kind")) for d in docs) or "none"
+        raise PolicyError(f"expected exactly one {KIND} document, found {len(found)} "
+                          f"(kinds: {kinds})", source=source)  # fmt: skip
+    return parse_policy(found[0], source=source)
+
+
+def load_policy_file(path: str | Path) -> Policy:
+    """Read a policy file for the CLI, turning file-system trouble into bad input (exit 2)."""
+    source = str(path)
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise PolicyError("policy file not found", source=source) from None
+    except UnicodeDecodeError:
+        raise PolicyError("policy file is not UTF-8 text", source=source) from None
+    except OSError as e:
+        raise PolicyError(f"cannot read policy file: {e.strerror or e}", source=source) from None
+    return load_policy_text(text, source=source)

@@ -50,7 +50,7 @@ def _bump(hours: np.ndarray, centre: float, width: float) -> np.ndarray:
 def profile(service: str, times: pd.DatetimeIndex) -> np.ndarray:
     """The noise-free expected load of a service at the given instants."""
     hours = np.asarray(times.hour + times.minute / 60.0, dtype=float)
-    weekend = np.asarray(times.dayofweek >= 5)
+    weekend = np.asarray(times.day_of_week >= 5)
     if service == "storefront":
         lunch = 3.6 * _bump(hours, 12.6, 0.9)
         evening = 5.4 * _bump(hours, 20.2, 1.4)

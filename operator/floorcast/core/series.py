@@ -107,7 +107,7 @@ class Series:
             raise ValueError("lower and upper must be given together")
         for name in ("values", "lower", "upper"):
             arr = getattr(self, name)
-            problem = None if arr is None else _load_problem(arr, list(arr), name, False)
+            problem = None if arr is None else _load_problem(arr, arr, name, False)
             if problem:
                 raise ValueError(f"{self.source}, sample {problem[0]}: {problem[1]}")
         problem = self.lower is not None and _bands(self.values, self.lower, self.upper)
@@ -330,7 +330,7 @@ def _times(raw: list[Any], name: str = "timestamp") -> tuple[np.ndarray, Problem
     return parsed.as_unit(UNIT).asi8, None
 
 
-def _load_problem(arr: np.ndarray, raw: list[Any], name: str, from_text: bool) -> Problem:
+def _load_problem(arr: np.ndarray, raw: Any, name: str, from_text: bool) -> Problem:
     """The first sample that is not a finite, non-negative number, and why."""
     i = _first(~np.isfinite(arr) | (arr < 0))
     if i < 0:
@@ -451,7 +451,8 @@ def _read_json(text: str, source: str) -> dict[str, Any]:
     points = doc.get("points")
     if not isinstance(points, list) or not points:
         raise top("'points' must be a non-empty list of {\"t\": ..., \"value\": ...} objects")
-    fields: dict[str, Any] = {"meta": doc.get("meta") or {}, "unit": doc.get("unit")}
+    meta = doc.get("meta")
+    fields: dict[str, Any] = {"meta": {} if meta is None else meta, "unit": doc.get("unit")}
     if not isinstance(fields["meta"], dict):
         raise top("'meta' must be an object")
     if not isinstance(fields["unit"], str | None):
@@ -504,12 +505,11 @@ def _parse(text: str, source: str, fmt: str | None, max_bytes: int | None, *,
                           kind="line")
     raw = _read_csv(text, source, forecast) if fmt == "csv" else _read_json(text, source)
     times, problem = _times(raw["t"])
-    found = [problem]
-    cols = {}
+    found, cols = [problem], {}
     for name in ("value", "lower", "upper") if raw["lower"] is not None else ("value",):
         cols[name], problem = _numbers(raw[name], name, raw["text"])
         found.append(problem)
-    if len(cols) == 3 and found == [found[0], None, None, None]:
+    if len(cols) == 3 and not any(found[1:]):  # band order only among valid numbers
         found.append(_bands(cols["value"], cols["lower"], cols["upper"]))
     found = [p for p in found if p is not None]
     if found:

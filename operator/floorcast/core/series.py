@@ -312,7 +312,7 @@ def _times(raw: list[Any], name: str = "timestamp") -> tuple[np.ndarray, Problem
     empty = np.empty(0, dtype=np.int64)
     if not set(map(type, raw)) <= {str}:
         i = next(i for i, v in enumerate(raw) if type(v) is not str)
-        return empty, (i, f"missing {name}" if raw[i] is None else
+        return empty, (i, f"missing {name} (key 't')" if raw[i] is None else
                        f"{name} {raw[i]!r} is not a string")
     text = raw
     if not _TS_RUN.fullmatch("\n".join(text)):  # slow path only for unusual spellings

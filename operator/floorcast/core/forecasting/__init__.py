@@ -1,0 +1,34 @@
+"""Forecasting methods (one module each) and the engine that picks and bands them.
+
+``METHODS`` maps the CLI's ``--method`` names to the method functions; each follows
+the contract in ``base.py``. Imports are lazy so that importing the package stays
+cheap for the operator, which never forecasts.
+"""
+
+from __future__ import annotations
+
+import importlib
+
+from floorcast.core.forecasting.base import ForecastError, MethodFn
+
+#: --method name -> "module:function" inside this package.
+METHODS: dict[str, str] = {
+    "seasonal-naive": "seasonal_naive:forecast",
+    "fourier": "fourier:forecast",
+    "holt-winters": "holt_winters:forecast",
+}
+
+
+def method(name: str) -> MethodFn:
+    """The forecast function for a ``--method`` name."""
+    try:
+        target = METHODS[name]
+    except KeyError:
+        raise ForecastError(
+            f"unknown forecasting method {name!r}; choose one of {', '.join(sorted(METHODS))}"
+        ) from None
+    module, fn = target.split(":")
+    return getattr(importlib.import_module(f"{__name__}.{module}"), fn)
+
+
+__all__ = ["METHODS", "ForecastError", "method"]

@@ -101,10 +101,18 @@ def _install_handlers() -> None:
         signal.signal(sig, _on_signal)
 
 
-def _die_with_parent() -> None:  # runs in the child between fork and exec
-    with contextlib.suppress(Exception):
-        libc = ctypes.CDLL(None, use_errno=True)
-        libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG
+_libc = ctypes.CDLL(None, use_errno=True)  # loaded here, not in the forked child
+_PR_SET_PDEATHSIG = 1
+
+
+def _die_with_parent(parent: int) -> Callable[[], None]:
+    def pre_exec() -> None:  # runs in the child between fork and exec
+        with contextlib.suppress(Exception):
+            _libc.prctl(_PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0)
+        if os.getppid() != parent:  # the parent died before prctl took effect
+            os._exit(1)
+
+    return pre_exec
 
 
 # --------------------------------------------------------------------------- processes
@@ -135,7 +143,7 @@ class ManagedProcess:
             # it from the main thread; a restart from a worker thread relies on the
             # atexit/signal clean-up instead of dying with that thread.
             in_main = threading.current_thread() is threading.main_thread()
-            pre = _die_with_parent if in_main else None
+            pre = _die_with_parent(os.getpid()) if in_main else None
             self._proc = subprocess.Popen(
                 self.argv,
                 stdin=subprocess.DEVNULL,

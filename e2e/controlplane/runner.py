@@ -52,6 +52,8 @@ SERVICE_CIDR = "10.0.0.0/24"
 SERVICE_IP = "10.0.0.1"
 SA_ISSUER = "https://kubernetes.default.svc.cluster.local"
 
+_PORT_ATTEMPTS = 3
+
 #: Keep the run directory (logs, etcd data) after stop, for post-mortems.
 KEEP_ENV = "FLOORCAST_KEEP_RUN_DIR"
 
@@ -102,13 +104,22 @@ class ControlPlane(Cluster):
         began = time.monotonic()
         bins = self._binaries or build.ensure_built()
         self._binaries = bins
-        self.run_dir = Path(tempfile.mkdtemp(prefix="floorcast-cp-"))
-        self._cleanup = register_cleanup(self.stop)
-        try:
-            self._start(bins, self.run_dir)
-        except BaseException:
-            self.stop()
-            raise
+        for attempt in range(1, _PORT_ATTEMPTS + 1):
+            self.run_dir = Path(tempfile.mkdtemp(prefix="floorcast-cp-"))
+            self._cleanup = register_cleanup(self.stop)
+            try:
+                self._start(bins, self.run_dir)
+                break
+            except ControlPlaneError as exc:
+                self.stop()
+                # Ports are picked free, then bound by the components a moment later;
+                # a parallel run can take one in between. Only that is worth a retry.
+                if "address already in use" not in str(exc) or attempt == _PORT_ATTEMPTS:
+                    raise
+                self._procs = {}
+            except BaseException:
+                self.stop()
+                raise
         self.startup_seconds["total"] = time.monotonic() - began
         return self
 

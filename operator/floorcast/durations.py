@@ -22,12 +22,21 @@ _UNITS = {
     "w": timedelta(weeks=1),
 }
 _PART = re.compile(r"(\d+(?:\.\d+)?)(ms|s|m|h|d|w)")
-#: The pattern the CRD schema uses too, so the API server and the CLI agree.
-DURATION_PATTERN = r"^([0-9]+(\.[0-9]+)?(ms|s|m|h|d|w))+$"
+#: Policy durations: Go's units only, because the CRD's CEL rules check them with
+#: CEL's ``duration()``, which knows Go's units and not ``d``/``w``. The CRD schema uses
+#: this same pattern, so the API server and the CLI accept exactly the same strings.
+DURATION_PATTERN = r"^([0-9]+(\.[0-9]+)?(ms|s|m|h))+$"
+_GO_UNITS = ("ms", "s", "m", "h")
 
 
-def parse_duration(text: str, *, field: str = "duration", allow_zero: bool = False) -> timedelta:
-    """Parse ``1h30m``-style text; ``field`` names the setting in the error message."""
+def parse_duration(
+    text: str, *, field: str = "duration", allow_zero: bool = False, days: bool = True
+) -> timedelta:
+    """Parse ``1h30m``-style text; ``field`` names the setting in the error message.
+
+    ``days=False`` refuses ``d`` and ``w`` (policy fields, see ``DURATION_PATTERN``);
+    CLI flags such as ``--lookback 14d`` keep them.
+    """
     if not isinstance(text, str):
         raise InputError(f"{field}: expected a duration string such as '5m', got {text!r}")
     s = text.strip()
@@ -36,13 +45,15 @@ def parse_duration(text: str, *, field: str = "duration", allow_zero: bool = Fal
     pos = 0
     total = timedelta(0)
     for m in _PART.finditer(s):
-        if m.start() != pos:
+        if m.start() != pos or (not days and m.group(2) not in _GO_UNITS):
             break
         total += float(m.group(1)) * _UNITS[m.group(2)]
         pos = m.end()
     if not s or pos != len(s):
+        units = "" if days else " (ms, s, m, h; write 24h, not 1d)"
         raise InputError(
-            f"{field}: {text!r} is not a duration (use Go-style units, e.g. '90s', '5m', '1h30m')"
+            f"{field}: {text!r} is not a duration (use Go-style units{units}, "
+            "e.g. '90s', '5m', '1h30m')"
         )
     if total <= timedelta(0) and not allow_zero:
         raise InputError(f"{field}: duration {text!r} must be greater than zero")

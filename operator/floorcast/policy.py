@@ -229,7 +229,7 @@ class _Reader:
         if value is None:
             return default
         try:
-            return parse_duration(value, field=path, allow_zero=allow_zero)
+            return parse_duration(value, field=path, allow_zero=allow_zero, days=False)
         except InputError as e:
             self.fail(path, e.problem.removeprefix(f"{path}: "))
 

@@ -1,0 +1,111 @@
+"""The CRD schema and policy.py must agree on every field, default and pattern.
+
+The API server validates what `kubectl apply` sends; policy.py validates what the CLI
+reads and what the operator gets back. If they disagreed, a policy could preview
+cleanly and then be rejected (or the reverse), so this test holds them together.
+"""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+
+from floorcast import policy
+from floorcast.durations import DURATION_PATTERN
+
+CRD = Path(__file__).resolve().parents[1] / "crds" / "forecastscalingpolicies.floorcast.dev.yaml"
+
+
+@pytest.fixture(scope="module")
+def schema() -> dict[str, Any]:
+    doc = yaml.safe_load(CRD.read_text())
+    assert doc["spec"]["group"] == "floorcast.dev"
+    assert doc["spec"]["names"]["kind"] == policy.KIND
+    assert doc["spec"]["names"]["shortNames"] == ["fsp"]
+    (version,) = doc["spec"]["versions"]
+    assert f"{doc['spec']['group']}/{version['name']}" == policy.API_VERSION
+    assert version["subresources"] == {"status": {}}
+    return version["schema"]["openAPIV3Schema"]
+
+
+def defaults_of(node: dict[str, Any]) -> dict[str, Any]:
+    """Collect schema defaults into the nested dict shape spec_defaults() uses."""
+    out: dict[str, Any] = {}
+    for name, prop in node.get("properties", {}).items():
+        if "default" in prop:
+            out[name] = prop["default"]
+        elif prop.get("type") == "object":
+            sub = defaults_of(prop)
+            if sub:
+                out[name] = sub
+    return out
+
+
+def test_every_spec_field_is_in_both(schema):
+    spec = schema["properties"]["spec"]
+    assert set(spec["properties"]) == set(policy._SPEC_FIELDS)
+    assert set(spec["required"]) == {"targetRef", "forecast", "capacity"}
+
+
+def test_every_default_agrees(schema):
+    assert defaults_of(schema["properties"]["spec"]) == policy.spec_defaults()
+
+
+def test_duration_patterns_are_the_policy_pattern(schema):
+    spec = schema["properties"]["spec"]["properties"]
+    for prop in (spec["leadTime"], spec["holdTime"], spec["forecast"]["properties"]["maxAge"]):
+        assert prop["pattern"] == DURATION_PATTERN
+    # And what the pattern accepts, policy.py parses (and the reverse for samples).
+    for text in ("5m", "1h30m", "90s", "250ms", "0s"):
+        assert re.fullmatch(DURATION_PATTERN, text)
+    for text in ("1d", "5", "-5m", "5 m"):
+        assert not re.fullmatch(DURATION_PATTERN, text)
+
+
+def test_mode_enum_matches(schema):
+    mode = schema["properties"]["spec"]["properties"]["mode"]
+    assert tuple(mode["enum"]) == policy.MODES
+
+
+def test_status_has_the_design_fields(schema):
+    status = schema["properties"]["status"]["properties"]
+    assert set(status) == {
+        "floor", "baseline", "proposedFloor", "nextChange", "forecastGenerated",
+        "lastAppliedTime", "observedGeneration", "conditions",
+    }  # fmt: skip
+    cond = status["conditions"]["items"]
+    # Kubernetes API conventions' condition shape (metav1.Condition).
+    assert set(cond["properties"]) == {
+        "type", "status", "reason", "message", "lastTransitionTime", "observedGeneration",
+    }  # fmt: skip
+
+
+def test_minimal_policy_parses_with_the_crd_defaults(schema):
+    p = policy.load_policy_text(
+        "apiVersion: floorcast.dev/v1alpha1\nkind: ForecastScalingPolicy\n"
+        "metadata: {name: a}\nspec:\n  targetRef: {name: web}\n"
+        "  forecast: {url: 'https://forecasts.example/web.json'}\n  capacity: {fromHPA: true}\n",
+        source="t",
+    )
+    d = defaults_of(schema["properties"]["spec"])
+    assert p.spec.mode == d["mode"]
+    assert p.spec.headroom == d["headroom"]
+    assert p.spec.use_upper_bound is d["useUpperBound"]
+    assert policy.format_duration(p.spec.lead_time) == d["leadTime"]
+    assert policy.format_duration(p.spec.hold_time) == d["holdTime"]
+    assert policy.format_duration(p.spec.forecast.max_age) == d["forecast"]["maxAge"]
+
+
+def test_policy_refuses_day_units_like_the_crd():
+    with pytest.raises(policy.PolicyError, match=r"spec\.holdTime.*24h, not 1d"):
+        policy.load_policy_text(
+            "apiVersion: floorcast.dev/v1alpha1\nkind: ForecastScalingPolicy\n"
+            "metadata: {name: a}\nspec:\n  targetRef: {name: web}\n"
+            "  forecast: {url: 'https://f.example/x'}\n  capacity: {fromHPA: true}\n"
+            "  holdTime: 1d\n",
+            source="t",
+        )

@@ -1,0 +1,122 @@
+"""The ForecastScalingPolicy CRD on a real API server: defaults, CEL rules, columns.
+
+The unit test (tests/test_crd.py) holds the CRD and policy.py together on paper; this
+one proves the API server itself applies the defaults and refuses what policy.py
+refuses, with the CRD exactly as shipped in crds/.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+from kubernetes import client as k8s
+from kubernetes.client.rest import ApiException
+
+from e2e.helpers import eventually
+from floorcast.policy import parse_policy, spec_defaults
+
+CRD = Path(__file__).resolve().parents[1] / "crds" / "forecastscalingpolicies.floorcast.dev.yaml"
+GROUP, VERSION, PLURAL = "floorcast.dev", "v1alpha1", "forecastscalingpolicies"
+
+
+@pytest.fixture(scope="module")
+def crd_installed(control_plane) -> None:
+    control_plane.kubectl("apply", "-f", str(CRD))
+    control_plane.kubectl(
+        "wait", "--for=condition=Established", "--timeout=60s",
+        "crd/forecastscalingpolicies.floorcast.dev",
+    )  # fmt: skip
+
+
+def policy(name: str, **spec: Any) -> dict[str, Any]:
+    body: dict[str, Any] = {
+        "targetRef": {"name": "web"},
+        "forecast": {"configMapRef": {"name": "web-forecast", "key": "forecast.json"}},
+        "capacity": {"perReplica": 0.5},
+    }
+    body.update(spec)
+    return {
+        "apiVersion": f"{GROUP}/{VERSION}",
+        "kind": "ForecastScalingPolicy",
+        "metadata": {"name": name},
+        "spec": body,
+    }
+
+
+def create(api_client: k8s.ApiClient, namespace: str, obj: dict[str, Any]) -> dict[str, Any]:
+    api = k8s.CustomObjectsApi(api_client)
+    return api.create_namespaced_custom_object(GROUP, VERSION, namespace, PLURAL, obj)
+
+
+def test_api_server_fills_the_same_defaults_as_policy_py(crd_installed, api_client, namespace):
+    got = create(api_client, namespace, policy("minimal"))
+    spec = got["spec"]
+    defaults = spec_defaults()
+    for key in ("leadTime", "holdTime", "headroom", "useUpperBound", "mode"):
+        assert spec[key] == defaults[key], key
+    assert spec["forecast"]["maxAge"] == defaults["forecast"]["maxAge"]
+    # What the API server returns, policy.py accepts and reads the same way.
+    parsed = parse_policy(got, source="api")
+    assert parsed.namespace == namespace and parsed.spec.mode == "DryRun"
+
+
+@pytest.mark.parametrize(
+    ("spec", "message"),
+    [
+        ({"forecast": {}}, "exactly one of forecast.configMapRef or forecast.url"),
+        (
+            {"forecast": {"url": "https://f.example/x",
+                          "configMapRef": {"name": "a", "key": "b"}}},
+            "exactly one of forecast.configMapRef or forecast.url",
+        ),
+        ({"capacity": {}}, "exactly one of capacity.perReplica or capacity.fromHPA"),
+        ({"capacity": {"perReplica": 1, "fromHPA": True}}, "exactly one of capacity.perReplica"),
+        ({"minReplicas": 5, "maxReplicas": 2}, "maxReplicas must be >= minReplicas"),
+        ({"leadTime": "0s"}, "leadTime must be greater than zero"),
+        ({"leadTime": "1d"}, "spec.leadTime"),
+        ({"headroom": -0.5}, "spec.headroom"),
+        ({"mode": "enforce"}, "spec.mode"),
+        (
+            {"plannedEvents": [{"name": "sale", "start": "2026-12-01T10:00:00Z",
+                                "end": "2026-12-01T09:00:00Z", "factor": 2}]},
+            "end must be after start",
+        ),
+        (
+            {"plannedEvents": [{"name": "sale", "start": "2026-12-01T10:00:00Z",
+                                "end": "2026-12-01T11:00:00Z", "factor": 0}]},
+            "factor",
+        ),
+    ],
+)  # fmt: skip
+def test_api_server_rejects_what_policy_py_rejects(
+    crd_installed, api_client, namespace, spec, message
+):
+    obj = policy("bad", **spec)
+    with pytest.raises(ApiException) as e:
+        create(api_client, namespace, obj)
+    assert e.value.status == 422
+    assert message in json.loads(e.value.body)["message"]
+    # policy.py refuses the same document (after the server's defaults would apply).
+    with pytest.raises(ValueError):
+        parse_policy(obj, source="bad")
+
+
+def test_short_name_and_printer_columns(crd_installed, control_plane, api_client, namespace):
+    create(api_client, namespace, policy("cols", mode="Enforce"))
+    out = eventually(
+        lambda: control_plane.kubectl("get", "fsp", "-n", namespace).stdout,
+        timeout=20,
+        what="kubectl get fsp",
+    )
+    header = out.splitlines()[0].split()
+    assert header[:4] == ["NAME", "TARGET", "MODE", "FLOOR"]
+    assert "READY" in header and header[-1] == "AGE"
+    assert "cols" in out and "Enforce" in out
+    # The example policy in the repo is accepted by the real API server as shipped.
+    example = yaml.safe_load((CRD.parents[1] / "examples" / "policy.yaml").read_text())
+    example["metadata"]["namespace"] = namespace
+    create(api_client, namespace, example)

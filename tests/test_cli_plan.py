@@ -10,11 +10,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from rich.console import Console
 
 from floorcast import scenario
 from floorcast.cli.demo import run_offline
 from floorcast.cli.main import main
-from rich.console import Console
 
 POLICY = """\
 apiVersion: floorcast.dev/v1alpha1
@@ -58,8 +58,18 @@ def files(tmp_path: Path) -> tuple[Path, Path]:
 def test_plan_json_is_one_document_with_the_contract_keys(files, capsys):
     policy, fc = files
     code, out, err = run(
-        ["plan", "-f", str(policy), "--forecast", str(fc), "--json",
-         "--at", "2026-12-01T00:00:00Z", "--baseline", "2"],
+        [
+            "plan",
+            "-f",
+            str(policy),
+            "--forecast",
+            str(fc),
+            "--json",
+            "--at",
+            "2026-12-01T00:00:00Z",
+            "--baseline",
+            "2",
+        ],
         capsys,
     )
     assert code == 0, err
@@ -67,8 +77,11 @@ def test_plan_json_is_one_document_with_the_contract_keys(files, capsys):
     assert doc["floor_now"] == 2
     # lead 10m = 2 steps: the rise to 5 starts at 00:50; hold 10m keeps it to 01:25.
     assert doc["next_change"] == {
-        "at": "2026-12-01T00:50:00Z", "from": 2, "to": 5,
-        "cause_at": "2026-12-01T01:00:00Z", "cause_load": 5.0,
+        "at": "2026-12-01T00:50:00Z",
+        "from": 2,
+        "to": 5,
+        "cause_at": "2026-12-01T01:00:00Z",
+        "cause_load": 5.0,
     }
     assert [(c["at"], c["from"], c["to"]) for c in doc["changes"]] == [
         ("2026-12-01T00:50:00Z", 2, 5),
@@ -79,8 +92,18 @@ def test_plan_json_is_one_document_with_the_contract_keys(files, capsys):
 def test_plan_flags_clamp_to_hpa_max(files, capsys):
     policy, fc = files
     code, out, _ = run(
-        ["plan", "-f", str(policy), "--forecast", str(fc), "--json", "--hpa-max", "3",
-         "--at", "2026-12-01T00:55:00Z"],
+        [
+            "plan",
+            "-f",
+            str(policy),
+            "--forecast",
+            str(fc),
+            "--json",
+            "--hpa-max",
+            "3",
+            "--at",
+            "2026-12-01T00:55:00Z",
+        ],
         capsys,
     )
     assert code == 0
@@ -92,8 +115,17 @@ def test_plan_table_and_plot(files, tmp_path, capsys):
     policy, fc = files
     png = tmp_path / "plan.png"
     code, out, _ = run(
-        ["plan", "-f", str(policy), "--forecast", str(fc), "--plot", str(png),
-         "--at", "2026-12-01T00:00:00Z"],
+        [
+            "plan",
+            "-f",
+            str(policy),
+            "--forecast",
+            str(fc),
+            "--plot",
+            str(png),
+            "--at",
+            "2026-12-01T00:00:00Z",
+        ],
         capsys,
     )
     assert code == 0
@@ -106,13 +138,11 @@ BAD_FORECASTS = {
     "inf": ("timestamp,value\n2026-12-01T00:00:00Z,inf\n2026-12-01T00:05:00Z,1\n", "row 2"),
     "negative": ("timestamp,value\n2026-12-01T00:00:00Z,1\n2026-12-01T00:05:00Z,-2\n", "row 3"),
     "unsorted": (
-        "timestamp,value\n2026-12-01T00:05:00Z,1\n2026-12-01T00:00:00Z,1\n"
-        "2026-12-01T00:10:00Z,1\n",
+        "timestamp,value\n2026-12-01T00:05:00Z,1\n2026-12-01T00:00:00Z,1\n2026-12-01T00:10:00Z,1\n",
         "row 3",
     ),
     "duplicate": (
-        "timestamp,value\n2026-12-01T00:00:00Z,1\n2026-12-01T00:00:00Z,1\n"
-        "2026-12-01T00:05:00Z,1\n",
+        "timestamp,value\n2026-12-01T00:00:00Z,1\n2026-12-01T00:00:00Z,1\n2026-12-01T00:05:00Z,1\n",
         "row 3",
     ),
     "irregular": (
@@ -127,8 +157,7 @@ BAD_FORECASTS = {
     "wrong columns": ("time,load\n2026-12-01T00:00:00Z,1\n", "column"),
     "no offset": ("timestamp,value\n2026-12-01T00:00:00,1\n2026-12-01T00:05:00,1\n", "row 2"),
     "band violated": (
-        "timestamp,value,lower,upper\n2026-12-01T00:00:00Z,1,0.5,2\n"
-        "2026-12-01T00:05:00Z,3,0.5,2\n",
+        "timestamp,value,lower,upper\n2026-12-01T00:00:00Z,1,0.5,2\n2026-12-01T00:05:00Z,3,0.5,2\n",
         "row 3",
     ),
 }
@@ -191,8 +220,16 @@ def test_forecast_too_short_for_the_lead_time(files, tmp_path, capsys):
     policy, _ = files
     fc = write_forecast(tmp_path / "short.csv", [1.0] * 4)  # ends 00:15; lead 10m
     code, out, err = run(
-        ["plan", "-f", str(policy), "--forecast", str(fc), "--json", "--at",
-         "2026-12-01T00:10:00Z"],
+        [
+            "plan",
+            "-f",
+            str(policy),
+            "--forecast",
+            str(fc),
+            "--json",
+            "--at",
+            "2026-12-01T00:10:00Z",
+        ],
         capsys,
     )
     assert code == 2 and out == ""
@@ -210,7 +247,9 @@ def test_forecast_too_short_for_the_lead_time(files, tmp_path, capsys):
 )
 def test_bad_flags_exit_2(args, needle, files, capsys):
     policy, fc = files
-    code, out, err = run(["plan", "-f", str(policy), "--forecast", str(fc), "--json", *args], capsys)
+    code, out, err = run(
+        ["plan", "-f", str(policy), "--forecast", str(fc), "--json", *args], capsys
+    )
     assert code == 2 and out == "" and needle in err and err.count("\n") == 1
 
 
@@ -226,16 +265,28 @@ def test_console_script_runs_in_a_subprocess(files):
     policy, fc = files
     exe = Path(sys.executable).parent / "floorcast"
     p = subprocess.run(
-        [str(exe), "plan", "-f", str(policy), "--forecast", str(fc), "--json",
-         "--at", "2026-12-01T00:00:00Z"],
-        capture_output=True, text=True, timeout=120,
+        [
+            str(exe),
+            "plan",
+            "-f",
+            str(policy),
+            "--forecast",
+            str(fc),
+            "--json",
+            "--at",
+            "2026-12-01T00:00:00Z",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
     )
     assert p.returncode == 0, p.stderr
     assert json.loads(p.stdout)["next_change"]["to"] == 5
 
 
 def test_demo_offline_plans_every_service_ahead_of_its_peaks(tmp_path):
-    plans = run_offline(tmp_path, Console(file=open(tmp_path / "log.txt", "w")), plots=False)
+    with open(tmp_path / "log.txt", "w") as log:
+        plans = run_offline(tmp_path, Console(file=log), plots=False)
     assert set(plans) == {s.name for s in scenario.SERVICES}
     for name, p in plans.items():
         assert (tmp_path / f"{name}-forecast.json").exists()

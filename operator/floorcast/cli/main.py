@@ -15,6 +15,7 @@ import click
 
 from floorcast import __version__
 from floorcast.cli.demo import demo
+from floorcast.cli.forecast import forecast
 from floorcast.cli.plan import plan
 from floorcast.errors import InputError
 
@@ -29,6 +30,7 @@ def app() -> None:
     pass
 
 
+app.add_command(forecast)
 app.add_command(plan)
 app.add_command(demo)
 

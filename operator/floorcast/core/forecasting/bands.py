@@ -1,0 +1,208 @@
+"""Prediction bands from the errors a method actually made, horizon step by step.
+
+Rolling-origin evaluation leaves, per series, a few forecasts (one per origin) and
+what happened after each; the band at horizon step h comes from the empirical
+quantiles of those residuals near h. A few origins give only a few residuals per
+step, so neighbouring steps are pooled in blocks. Widths are then made
+non-decreasing with the horizon by isotonic regression: a forecast cannot know the
+far future better than the near one, so a band that narrows with the horizon is
+sampling noise. Offsets are forced to straddle zero so that ``lower ≤ value ≤
+upper`` holds as ``Series`` requires. Quantiles are Hyndman & Fan's (1996) type 6
+(numpy's "weibull"): with a few dozen residuals per block numpy's default type 7
+gives 80 % bands that cover ~76 %, type 6 is unbiased for that coverage.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+
+from floorcast.core.forecasting.evaluation import Backtest, naive_abs_errors, season_lag
+from floorcast.core.forecasting.preprocess import nan_quantiles
+from floorcast.errors import InputError
+
+DEFAULT_QUANTILES = (0.1, 0.9)
+#: Fewer pooled residuals than this in a block and its quantile is not trusted; the
+#: block then barely weighs in the fit (common practice, no source).
+MIN_SAMPLES = 10
+QUANTILE_METHOD = "weibull"
+
+
+def check_quantiles(quantiles: tuple[float, float]) -> tuple[float, float]:
+    try:
+        lo, hi = (float(q) for q in quantiles)
+    except (TypeError, ValueError):
+        raise InputError(f"quantiles must be a (lower, upper) pair, got {quantiles!r}") from None
+    if not 0 < lo < hi < 1:
+        raise InputError(f"quantiles must satisfy 0 < lower < upper < 1, got {quantiles!r}")
+    return lo, hi
+
+
+def default_pool(horizon: int) -> int:
+    """Steps pooled per block: 1/24 of the horizon (an hour of a day), at least 5."""
+    return max(5, horizon // 24)
+
+
+def isotonic_increasing(y: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """Weighted least-squares non-decreasing fit of each row, by the min-max formula
+    ŷ_i = max_{j≤i} min_{k≥i} mean_w(y_j..y_k) (Robertson, Wright & Dykstra 1988,
+    "Order Restricted Statistical Inference", from memory). O(B²) per row, meant for
+    a few dozen blocks, and fully vectorized across rows."""
+    n, b = y.shape
+    cw = np.concatenate([np.zeros((n, 1)), np.cumsum(w, axis=1)], axis=1)
+    cy = np.concatenate([np.zeros((n, 1)), np.cumsum(w * y, axis=1)], axis=1)
+    num = cy[:, None, 1:] - cy[:, :-1, None]  # [j, k] = Σ_{j..k} w·y
+    den = cw[:, None, 1:] - cw[:, :-1, None]
+    upper = np.triu(np.ones((b, b), dtype=bool))  # k ≥ j
+    with np.errstate(invalid="ignore", divide="ignore"):
+        avg = np.where(upper, num / den, np.inf)
+    suffix_min = np.minimum.accumulate(avg[..., ::-1], axis=-1)[..., ::-1]  # min over k ≥ i
+    return np.where(upper, suffix_min, -np.inf).max(axis=1)  # max over j ≤ i
+
+
+def residual_quantiles(
+    residuals: np.ndarray,
+    valid: np.ndarray,
+    quantiles: tuple[float, float] = DEFAULT_QUANTILES,
+    *,
+    pool: int | None = None,
+    min_samples: int = MIN_SAMPLES,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Lower and upper offsets (N, H) from residuals (N, K, H), monotone in width.
+
+    Horizon steps are pooled in blocks of ``pool`` steps (all origins together); the
+    block quantiles are made monotone by weighted isotonic regression (upper offset
+    non-decreasing, lower non-increasing) and read linearly between block centres.
+    A running maximum would also be monotone, but the maximum of many noisy block
+    estimates is biased outwards (80 % bands covering ~88 % of Gaussian noise in the
+    tests); the least-squares fit keeps the average width. Returns (lower offset ≤ 0,
+    upper offset ≥ 0, ok (N,)); ``ok`` is False for a series with fewer than
+    ``min_samples`` valid residuals in all, whose offsets are 0 and must come from
+    elsewhere.
+    """
+    qs = check_quantiles(quantiles)
+    r = np.where(valid, residuals, np.nan).astype(np.float64)
+    n, k, h = r.shape
+    if k == 0 or h == 0:
+        return np.zeros((n, h)), np.zeros((n, h)), np.zeros(n, dtype=bool)
+    size = default_pool(h) if pool is None else max(int(pool), 1)
+    nb = -(-h // size)
+    pad = np.full((n, k, nb * size), np.nan)
+    pad[..., :h] = r
+    blocks = pad.reshape(n, k, nb, size).transpose(0, 2, 1, 3).reshape(n, nb, k * size)
+    q, count = nan_quantiles(blocks, qs, method=QUANTILE_METHOD)  # (N, B, 2), (N, B)
+    whole, total = nan_quantiles(r.reshape(n, -1), qs, method=QUANTILE_METHOD)
+    thin = count < min_samples
+    q = np.where(thin[..., None], whole[:, None, :], q)
+    weight = np.where(thin, 1e-6, count.astype(np.float64))
+    lo_b = -isotonic_increasing(-np.minimum(q[..., 0], 0.0), weight)
+    hi_b = isotonic_increasing(np.maximum(q[..., 1], 0.0), weight)
+    # Linear between block centres, flat beyond the first and last.
+    centre = np.minimum(np.arange(nb) * size + (size - 1) / 2, (np.arange(nb) * size + h - 1) / 2)
+    x = np.arange(h, dtype=np.float64)
+    i1 = np.clip(np.searchsorted(centre, x, side="right"), 1, max(nb - 1, 1))
+    i0 = i1 - 1
+    if nb == 1:
+        f = np.zeros(h)
+        i0 = i1 = np.zeros(h, dtype=np.int64)
+    else:
+        f = np.clip((x - centre[i0]) / (centre[i1] - centre[i0]), 0.0, 1.0)
+    # The fit is monotone; the running extremes only remove float rounding from it.
+    lo = np.minimum.accumulate(lo_b[:, i0] * (1 - f) + lo_b[:, i1] * f, axis=1)
+    hi = np.maximum.accumulate(hi_b[:, i0] * (1 - f) + hi_b[:, i1] * f, axis=1)
+    ok = total >= min_samples
+    lo[~ok], hi[~ok] = 0.0, 0.0
+    return lo, hi, ok
+
+
+def insample_quantiles(
+    y: np.ndarray,
+    season: int,
+    valid: np.ndarray | None = None,
+    quantiles: tuple[float, float] = DEFAULT_QUANTILES,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Offsets (N,) from the in-sample seasonal-naive errors y_t − y_{t−m}: the fallback
+    when the history is too short for rolling origins. Constant over the horizon, so
+    it understates far-horizon error for methods that drift; the metadata says so."""
+    qs = check_quantiles(quantiles)
+    a = np.asarray(y, dtype=np.float64)
+    lag = season_lag(season)
+    if a.shape[1] <= lag:
+        return np.zeros(a.shape[0]), np.zeros(a.shape[0])
+    _, ok = naive_abs_errors(a, season, valid)
+    d = np.where(ok, a[:, lag:] - a[:, :-lag], np.nan)
+    q, _ = nan_quantiles(d, qs, method=QUANTILE_METHOD)
+    return np.minimum(q[:, 0], 0.0), np.maximum(q[:, 1], 0.0)
+
+
+def apply_offsets(
+    point: np.ndarray, lo: np.ndarray, hi: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(point, lower, upper), all ≥ 0 and ordered. Offsets shorter than the horizon
+    hold their last value; (N,) offsets apply to every step."""
+    p = np.maximum(np.asarray(point, dtype=np.float64), 0.0)
+    n, h = p.shape
+
+    def fit(o: np.ndarray) -> np.ndarray:
+        o = np.asarray(o, dtype=np.float64)
+        if o.ndim == 1:
+            return np.broadcast_to(o[:, None], (n, h))
+        if o.shape[1] >= h:
+            return o[:, :h]
+        return np.concatenate([o, np.repeat(o[:, -1:], h - o.shape[1], axis=1)], axis=1)
+
+    lower = np.clip(p + fit(lo), 0.0, p)
+    upper = np.maximum(p + fit(hi), p)
+    return p, lower, upper
+
+
+def from_backtests(
+    backtests: dict[str, Backtest],
+    methods: Sequence[str],
+    horizon: int,
+    quantiles: tuple[float, float] = DEFAULT_QUANTILES,
+    *,
+    pool: int | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Offsets (N, horizon) for each series from the backtest of the method it uses,
+    one vectorized pass per method; ``ok`` False where that gave too few residuals."""
+    n = len(methods)
+    lo, hi = np.zeros((n, horizon)), np.zeros((n, horizon))
+    ok = np.zeros(n, dtype=bool)
+    names = np.asarray(methods, dtype=object)
+    for name, bt in backtests.items():
+        rows = np.flatnonzero(names == name)
+        if rows.size and bt.forecast.shape[1]:
+            a, b, good = residual_quantiles(
+                bt.residuals[rows], bt.valid[rows], quantiles, pool=pool
+            )
+            lo[rows], hi[rows], ok[rows] = a, b, good
+    return lo, hi, ok
+
+
+def holdout_coverage(
+    bt: Backtest,
+    quantiles: tuple[float, float] = DEFAULT_QUANTILES,
+    *,
+    pool: int | None = None,
+) -> np.ndarray:
+    """Out-of-sample band coverage per series: each origin's actuals against bands
+    sized from the *other* origins' residuals (leave one origin out). The engine's
+    own bands use all origins, so this slightly understates their coverage; NaN with
+    fewer than two origins or nothing to score."""
+    n, k, _ = bt.forecast.shape
+    if k < 2:
+        return np.full(n, np.nan)
+    hits, count = np.zeros(n), np.zeros(n)
+    res = bt.residuals
+    for j in range(k):
+        others = [i for i in range(k) if i != j]
+        lo, hi, ok = residual_quantiles(res[:, others], bt.valid[:, others], quantiles, pool=pool)
+        _, lower, upper = apply_offsets(bt.forecast[:, j], lo, hi)
+        v = bt.valid[:, j] & ok[:, None]
+        actual = bt.actual[:, j]
+        hits += ((actual >= lower) & (actual <= upper) & v).sum(axis=1)
+        count += v.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(count > 0, hits / np.maximum(count, 1), np.nan)

@@ -1,0 +1,385 @@
+"""The forecasting engine: history in, point forecast with bands and provenance out.
+
+One pass over a whole fleet: clean the history (``preprocess``), evaluate the
+candidate methods by rolling origin (``select``), forecast with each series' best
+method once per group of series that share it, size bands from the chosen method's
+rolling-origin errors (``bands``) and record why, for the forecast JSON's metadata.
+Methods are reached only through the registry (``floorcast.core.forecasting.method``)
+so new ones need no change here. Load is never negative, so forecasts and bands are
+clipped at 0 here. There is no clock: ``generated`` is a parameter.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from floorcast.core import forecasting
+from floorcast.core.forecasting import bands, evaluation, preprocess
+from floorcast.core.forecasting.base import ForecastError
+from floorcast.core.forecasting.select import call_rows, select, unevaluated
+from floorcast.core.series import Series
+from floorcast.durations import format_duration, parse_duration
+from floorcast.errors import InputError
+
+#: Preferred when nothing could be evaluated: it needs one season and cannot drift.
+FALLBACK_METHOD = "seasonal-naive"
+_DAY = pd.Timedelta(days=1)
+
+
+@dataclass(frozen=True)
+class Options:
+    """Tuning knobs with defaults that suit 5-minute load over two weeks."""
+
+    #: Rolling origins: the newest leaves one evaluation horizon to score, the others
+    #: step back a day each, so the scores cover three different days.
+    origins: int = 3
+    origin_spacing: pd.Timedelta = _DAY
+    #: Score at most a day ahead: longer horizons would leave too little training data
+    #: before the origins; bands beyond it keep the last evaluated width.
+    max_eval_horizon: pd.Timedelta = _DAY
+    clip: bool = True
+    clip_k: float = preprocess.DEFAULT_CLIP_K
+    clip_window: int = preprocess.DEFAULT_CLIP_WINDOW
+    clip_how: str = "rolling"
+    pool: int | None = None  # horizon steps pooled per band block (None: bands.default_pool)
+
+
+@dataclass(frozen=True, eq=False)
+class BatchForecast:
+    """Forecasts for N series over H steps, with the provenance of each."""
+
+    point: np.ndarray  # (N, H), ≥ 0
+    lower: np.ndarray  # (N, H), 0 ≤ lower ≤ point
+    upper: np.ndarray  # (N, H), ≥ point
+    method: tuple[str, ...]
+    season: np.ndarray  # (N,) steps, 0 = none
+    scores: tuple[dict[str, dict[str, float | None]], ...]  # method -> metric -> value
+    meta: tuple[dict[str, Any], ...]
+    quantiles: tuple[float, float]
+    step: pd.Timedelta
+    start: tuple[pd.Timestamp | None, ...] = ()  # first forecast instant, if known
+    units: tuple[str | None, ...] = ()
+    generated: pd.Timestamp | None = None
+    sources: tuple[str, ...] = field(default=())
+
+    def series(self, i: int) -> Series:
+        """Row ``i`` as a forecast ``Series`` (needs a known start)."""
+        if not self.start or self.start[i] is None:
+            raise InputError("the history's start time is unknown; pass start= to forecast_batch")
+        return Series(
+            start=self.start[i],
+            step=self.step,
+            values=self.point[i],
+            lower=self.lower[i],
+            upper=self.upper[i],
+            unit=self.units[i] if self.units else None,
+            generated=self.generated,
+            source=self.sources[i] if self.sources else "<forecast>",
+            meta=self.meta[i],
+        )
+
+
+def steps(value: Any, step: pd.Timedelta | None, what: str) -> int:
+    """A count of steps from an int or a duration that is a whole number of steps."""
+    if isinstance(value, int | np.integer) and not isinstance(value, bool):
+        return int(value)
+    if isinstance(value, str):
+        value = parse_duration(value, field=what)
+    if step is None:
+        raise InputError(f"{what} given as a duration needs the series step")
+    ratio = pd.Timedelta(value) / step
+    if not math.isclose(ratio, round(ratio), rel_tol=0, abs_tol=1e-6):
+        raise InputError(f"{what} {pd.Timedelta(value)} is not a whole number of {step} steps")
+    return round(ratio)
+
+
+def detect_season(y: np.ndarray, step: pd.Timedelta) -> np.ndarray:
+    """HOOK for ``season="auto"``: ``core/forecasting/periods.py`` ``detect_period``,
+    written separately. Until that module exists, "auto" is a clear error."""
+    try:
+        from floorcast.core.forecasting import periods
+    except ModuleNotFoundError as e:
+        if e.name != f"{__package__}.periods":
+            raise
+        raise ForecastError(
+            "season 'auto' needs period detection, which is not available "
+            "yet; give the season explicitly (e.g. 1d)"
+        ) from None
+    found = periods.detect_period(y, step_seconds=step.total_seconds()).seasons
+    return np.broadcast_to(np.asarray(found, dtype=np.int64), (y.shape[0],)).copy()
+
+
+def _rows(y: Any, step: Any, filled: Any, start: Any) -> tuple[list, pd.Timedelta, dict]:
+    """Split the input into per-series value arrays and what is known about each."""
+    if isinstance(y, Sequence) and y and all(isinstance(s, Series) for s in y):
+        steps_ = {s.step for s in y}
+        if len(steps_) > 1:
+            raise InputError(f"all series must share one step, got {sorted(map(str, steps_))}")
+        own = next(iter(steps_))
+        if step is not None and pd.Timedelta(step) != own:
+            raise InputError(f"step {pd.Timedelta(step)} disagrees with the series' step {own}")
+        if any(len(s) == 0 for s in y):
+            raise ForecastError("an empty series cannot be forecast")
+        info = {
+            "filled": [s.filled_mask() for s in y],
+            "start": [s.start for s in y],
+            "units": tuple(s.unit for s in y),
+            "sources": tuple(s.source for s in y),
+        }
+        return [np.asarray(s.values, dtype=np.float64) for s in y], own, info
+    a = np.asarray(y, dtype=np.float64)
+    a = a[None, :] if a.ndim == 1 else a
+    if a.ndim != 2 or a.shape[1] == 0:
+        raise ForecastError(f"expected a non-empty (N, T) batch of series, got shape {a.shape}")
+    if step is None:
+        raise InputError("forecast_batch needs step= for an array of series")
+    f = None if filled is None else np.broadcast_to(np.asarray(filled, dtype=bool), a.shape)
+    t0 = None if start is None else pd.Timestamp(start)
+    info = {
+        "filled": [None if f is None else f[i] for i in range(len(a))],
+        "start": [t0] * len(a),
+        "units": (),
+        "sources": (),
+    }
+    return list(a), pd.Timedelta(step), info
+
+
+def _season(season: Any, rows: list[np.ndarray], dt: pd.Timedelta) -> np.ndarray:
+    n = len(rows)
+    if season != "auto":
+        s = 0 if season is None else steps(season, dt, "season")
+        if s < 0:
+            raise InputError(f"season must be ≥ 0 steps, got {s}")
+        return np.full(n, s, dtype=np.int64)
+    out = np.zeros(n, dtype=np.int64)
+    lengths = np.array([len(r) for r in rows])
+    for t in np.unique(lengths):
+        idx = np.flatnonzero(lengths == t)
+        out[idx] = detect_season(np.stack([rows[i] for i in idx]), dt)
+    return out
+
+
+def forecast_batch(
+    y: np.ndarray | Sequence[Series],
+    *,
+    horizon: int | pd.Timedelta | str,
+    step: pd.Timedelta | str | None = None,
+    method: str = "auto",
+    season: str | int | pd.Timedelta | None = "auto",
+    quantiles: tuple[float, float] = bands.DEFAULT_QUANTILES,
+    event_windows: Sequence[preprocess.Window] | None = None,
+    masked: np.ndarray | None = None,
+    filled: np.ndarray | None = None,
+    start: Any = None,
+    candidates: Sequence[str] | None = None,
+    generated: Any = None,
+    options: Options | None = None,
+) -> BatchForecast:
+    """Forecast every series ``horizon`` steps past its end.
+
+    ``y`` is an (N, T) array (then ``step`` is required and ``start``, the first
+    sample's instant, places instant event windows and the result) or a list of
+    ``Series`` (their gap-filled points are left out of scoring). ``event_windows``
+    are past planned events, as index or instant pairs, masked in every series;
+    ``masked`` adds an (N, T) mask of its own. ``candidates`` limits ``auto`` (default:
+    every registered method). Series may differ in length; they are processed in
+    groups of equal length and season.
+    """
+    opt = options or Options()
+    q = bands.check_quantiles(quantiles)
+    if isinstance(step, str):
+        step = parse_duration(step, field="step")
+    rows, dt, info = _rows(y, None if step is None else pd.Timedelta(step), filled, start)
+    n = len(rows)
+    h = steps(horizon, dt, "horizon")
+    if h < 1:
+        raise InputError(f"horizon must be at least one step, got {h}")
+    names = (method,) if method != "auto" else tuple(candidates or forecasting.METHODS)
+    for name in names:
+        forecasting.method(name)  # an unknown name fails before any work
+    seasons = _season(season, rows, dt)
+    out = np.zeros((3, n, h))  # point, lower, upper
+    meta: list[dict[str, Any]] = [{} for _ in range(n)]
+    key = [(len(r), int(s)) for r, s in zip(rows, seasons, strict=True)]
+    for t_len, s in sorted(set(key)):
+        idx = np.flatnonzero([k == (t_len, s) for k in key])
+        filled_ = np.zeros((len(idx), t_len), dtype=bool)
+        masked_ = np.zeros((len(idx), t_len), dtype=bool)
+        for j, i in enumerate(idx):
+            if info["filled"][i] is not None:
+                filled_[j] = info["filled"][i]
+            masked_[j] = preprocess.event_mask(
+                t_len, event_windows, start=info["start"][i], step=dt
+            )
+        if masked is not None:
+            masked_ |= np.broadcast_to(np.asarray(masked, dtype=bool), (n, t_len))[idx]
+        out[:, idx], group_meta = _forecast_group(
+            np.stack([rows[i] for i in idx]),
+            filled_,
+            masked_,
+            names,
+            auto=method == "auto",
+            season=s,
+            horizon=h,
+            step=dt,
+            quantiles=q,
+            opt=opt,
+        )
+        for j, i in enumerate(idx):
+            meta[i] = group_meta[j]
+    if not np.all(np.isfinite(out)):
+        raise ForecastError("internal: non-finite forecast values")  # never NaN out
+    return BatchForecast(
+        point=out[0],
+        lower=out[1],
+        upper=out[2],
+        method=tuple(m["method"] for m in meta),
+        season=seasons,
+        scores=tuple(m["scores"] for m in meta),
+        meta=tuple(meta),
+        quantiles=q,
+        step=dt,
+        start=tuple(
+            None if t0 is None else t0 + dt * len(r)
+            for t0, r in zip(info["start"], rows, strict=True)
+        ),
+        units=info["units"],
+        generated=None if generated is None else pd.Timestamp(generated),
+        sources=info["sources"],
+    )
+
+
+def _forecast_group(
+    y: np.ndarray,
+    filled: np.ndarray,
+    masked: np.ndarray,
+    names: tuple[str, ...],
+    *,
+    auto: bool,
+    season: int,
+    horizon: int,
+    step: pd.Timedelta,
+    quantiles: tuple[float, float],
+    opt: Options,
+) -> tuple[np.ndarray, list[dict[str, Any]]]:
+    """The whole pipeline for series that share length and season: (3, N, H), meta."""
+    n, t_len = y.shape
+    prep = preprocess.prepare(
+        y,
+        season=season,
+        filled=filled,
+        masked=masked,
+        clip=opt.clip,
+        clip_k=opt.clip_k,
+        clip_window=opt.clip_window,
+        clip_how=opt.clip_how,
+        min_length=max(2, season),
+    )
+    valid = ~prep.excluded
+    h_eval = max(1, min(horizon, steps(opt.max_eval_horizon, step, "evaluation horizon")))
+    spacing = max(1, steps(opt.origin_spacing, step, "origin spacing"))
+    at = evaluation.origins(
+        t_len, h_eval, count=opt.origins, spacing=spacing, min_train=max(2, season)
+    )
+    if at.size:
+        sel = select(
+            prep.values,
+            names,
+            season=season,
+            horizon=h_eval,
+            at=at,
+            valid=valid,
+            quantiles=quantiles,
+            pool=opt.pool,
+        )
+    else:
+        sel = unevaluated(names, n, prefer=FALLBACK_METHOD)
+    # Forecast with each row's best method; a row its choice rejects on the full
+    # history tries the next best, so one odd series cannot sink the whole batch.
+    final = np.full(n, -1)
+    point = np.zeros((n, horizon))
+    why = dict(sel.failures)
+    for rank in range(len(names)):
+        left = final < 0
+        for j in np.unique(sel.order[left, rank]):
+            rows = np.flatnonzero(left & (sel.order[:, rank] == j))
+            got, ok, reason = call_rows(
+                forecasting.method(names[j]), prep.values[rows], season=season, horizon=horizon
+            )
+            point[rows[ok]], final[rows[ok]] = got[ok], j
+            if reason:
+                why.setdefault(names[j], reason)
+    if (final < 0).any():
+        detail = "; ".join(f"{k}: {v}" for k, v in why.items())
+        raise ForecastError(
+            f"series {np.flatnonzero(final < 0)[:5].tolist()} could not be "
+            f"forecast by {', '.join(names)} ({detail})"
+        )
+    methods = [names[j] for j in final]
+    lo, hi, banded = bands.from_backtests(sel.backtests, methods, h_eval, quantiles, pool=opt.pool)
+    if not banded.all():
+        rest = np.flatnonzero(~banded)
+        a, b = bands.insample_quantiles(prep.values[rest], season, valid[rest], quantiles)
+        lo[rest], hi[rest] = a[:, None], b[:, None]
+    result = np.stack(bands.apply_offsets(point, lo, hi))
+    meta = []
+    for i in range(n):
+        picked = sel.evaluated[i] and final[i] == sel.order[i, 0]
+        meta.append(
+            {
+                "method": methods[i],
+                "selection": "fixed" if not auto else "auto" if picked else "fallback",
+                "season": int(season),
+                "season_duration": format_duration(step * season) if season else None,
+                "horizon": int(horizon),
+                "quantiles": list(quantiles),
+                "bands": "rolling-origin" if banded[i] else "in-sample",
+                "evaluation": {
+                    "origins": int(at.size),
+                    "horizon": int(h_eval),
+                    "spacing": int(spacing),
+                },
+                "scores": sel.row_scores(i),
+                "failures": sel.failed(i),
+                "preprocess": {
+                    "clipped": int(prep.clipped[i].sum()),
+                    "masked": int(prep.masked[i].sum()),
+                    "filled": int(prep.filled[i].sum()),
+                },
+            }
+        )
+    return result, meta
+
+
+def forecast_series(
+    series: Series,
+    *,
+    horizon: int | pd.Timedelta | str,
+    method: str = "auto",
+    season: str | int | pd.Timedelta | None = "auto",
+    quantiles: tuple[float, float] = bands.DEFAULT_QUANTILES,
+    event_windows: Sequence[preprocess.Window] | None = None,
+    candidates: Sequence[str] | None = None,
+    generated: Any = None,
+    options: Options | None = None,
+) -> Series:
+    """One history in, one forecast ``Series`` out: it starts one step after the
+    history ends and carries method, season, scores and quantiles in ``meta``."""
+    result = forecast_batch(
+        [series],
+        horizon=horizon,
+        method=method,
+        season=season,
+        quantiles=quantiles,
+        event_windows=event_windows,
+        candidates=candidates,
+        generated=generated,
+        options=options,
+    )
+    return result.series(0)

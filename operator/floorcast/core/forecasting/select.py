@@ -1,0 +1,201 @@
+"""``--method auto``: score every candidate by rolling origin and keep the best per series.
+
+Choice is per series, not per batch: a fleet mixes smooth daily services with spiky
+batch workers, and one method for all would serve neither. It stays vectorized
+because every candidate is evaluated on the whole batch, and the final forecast is
+made once per group of series that chose the same method.
+
+The ranking key is MASE. Within one series every method is divided by the same
+scale at each origin, so MASE ranks them like an origin-weighted MAE; where MASE is
+not finite for every candidate (a history that repeats exactly has scale 0) the
+plain MAE decides instead. Equal scores go to the earlier candidate, so list the
+simpler methods first. Methods are looked up only through the registry,
+``floorcast.core.forecasting.method``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from floorcast.core import forecasting
+from floorcast.core.forecasting import bands
+from floorcast.core.forecasting.base import ForecastError, MethodFn
+from floorcast.core.forecasting.evaluation import Backtest, rolling_origin
+
+
+def call_rows(
+    fn: MethodFn, y: np.ndarray, *, season: int, horizon: int
+) -> tuple[np.ndarray, np.ndarray, str | None]:
+    """Run a method on a batch and isolate the rows it rejects.
+
+    Methods raise ``ForecastError`` for the whole batch when one series is unusable,
+    so a failing batch is split in halves until the bad rows are found (about
+    log₂ N extra calls per bad row). Returns (forecast with NaN rows where it failed,
+    ok (N,), the first failure message). Any other exception is a bug and propagates.
+    """
+    n = y.shape[0]
+    out = np.full((n, horizon), np.nan)
+    ok = np.zeros(n, dtype=bool)
+    reason: list[str] = []
+
+    def run(rows: np.ndarray) -> None:
+        try:
+            got = np.asarray(fn(y[rows], season=season, horizon=horizon), dtype=np.float64)
+        except ForecastError as e:
+            if len(rows) == 1:
+                reason.append(str(e))
+                return
+            half = len(rows) // 2
+            run(rows[:half])
+            run(rows[half:])
+            return
+        if got.shape != (len(rows), horizon):
+            raise ForecastError(
+                f"method returned shape {got.shape}, expected {(len(rows), horizon)}"
+            )
+        good = np.all(np.isfinite(got), axis=1)  # the contract says never; guard anyway
+        out[rows[good]] = got[good]
+        ok[rows[good]] = True
+        if not good.all():
+            reason.append("method returned non-finite values")
+
+    if n:
+        run(np.arange(n))
+    return out, ok, (reason[0] if reason else None)
+
+
+@dataclass(frozen=True, eq=False)
+class Selection:
+    """The candidates' backtests, their scores and the order of preference per series."""
+
+    names: tuple[str, ...]
+    order: np.ndarray  # (N, M) candidate indices, best first
+    evaluated: np.ndarray  # (N,) bool: the best one was actually scored
+    backtests: dict[str, Backtest]
+    scores: dict[str, dict[str, np.ndarray]]  # name -> metric -> (N,)
+    failures: dict[str, str] = field(default_factory=dict)  # name -> first reason
+
+    @property
+    def chosen(self) -> np.ndarray:
+        """(N,) index of the best candidate; -1 where no candidate could be scored."""
+        return np.where(self.evaluated, self.order[:, 0], -1)
+
+    def method_of(self, i: int) -> str | None:
+        c = int(self.chosen[i])
+        return self.names[c] if c >= 0 else None
+
+    def failed(self, i: int) -> dict[str, str]:
+        """Why each candidate that could not forecast series ``i`` at every origin failed."""
+        return {
+            n: self.failures.get(n, "no forecast")
+            for n in self.names
+            if n in self.backtests and not self.backtests[n].ok[i]
+        }
+
+    def row_scores(self, i: int) -> dict[str, dict[str, float | None]]:
+        """Series ``i``'s scores, JSON-ready (None where undefined)."""
+        return {
+            n: {k: (float(v[i]) if np.isfinite(v[i]) else None) for k, v in m.items()}
+            for n, m in self.scores.items()
+        }
+
+
+def evaluate(
+    y: np.ndarray,
+    names: Sequence[str],
+    *,
+    season: int,
+    horizon: int,
+    at: np.ndarray,
+    valid: np.ndarray | None = None,
+) -> tuple[dict[str, Backtest], dict[str, str]]:
+    """Rolling-origin backtest of each named method over the same origins; also the
+    first failure message per method that rejected some series."""
+    backtests: dict[str, Backtest] = {}
+    failures: dict[str, str] = {}
+    for name in names:
+        fn = forecasting.method(name)
+        first: list[str] = []
+
+        def call(train: np.ndarray, fn: MethodFn = fn, first: list[str] = first) -> np.ndarray:
+            out, _, why = call_rows(fn, train, season=season, horizon=horizon)
+            if why and not first:
+                first.append(why)
+            return out
+
+        backtests[name] = rolling_origin(
+            y, call, season=season, horizon=horizon, at=at, valid=valid
+        )
+        if first:
+            failures[name] = first[0]
+    return backtests, failures
+
+
+def rank_key(scores: dict[str, dict[str, np.ndarray]], names: Sequence[str]) -> np.ndarray:
+    """(N, M) key to minimise: MASE, or MAE on rows where some MASE is not finite."""
+    mase = np.stack([scores[n]["mase"] for n in names], axis=1)
+    mae_ = np.stack([scores[n]["mae"] for n in names], axis=1)
+    use_mae = ~np.all(np.isfinite(mase), axis=1, keepdims=True)
+    key = np.where(use_mae, mae_, mase)
+    return np.where(np.isnan(key), np.inf, key)
+
+
+def unevaluated(names: Sequence[str], n: int, prefer: str | None = None) -> Selection:
+    """The choice when history is too short to score anything: ``prefer`` first, then
+    the candidates in the order given."""
+    names = tuple(names)
+    first = sorted(range(len(names)), key=lambda j: names[j] != prefer)
+    return Selection(
+        names=names,
+        order=np.tile(np.array(first), (n, 1)),
+        evaluated=np.zeros(n, dtype=bool),
+        backtests={},
+        scores={},
+    )
+
+
+def select(
+    y: np.ndarray,
+    names: Sequence[str],
+    *,
+    season: int,
+    horizon: int,
+    at: np.ndarray,
+    valid: np.ndarray | None = None,
+    quantiles: tuple[float, float] = bands.DEFAULT_QUANTILES,
+    pool: int | None = None,
+) -> Selection:
+    """Evaluate ``names`` at origins ``at``; rank them per series, lowest MASE first.
+
+    A candidate that failed on a series at any origin ranks last for it (after the
+    scored ones, in candidate order), so it is only tried if all others fail too.
+    Scores are MASE, sMAPE, MAE and held-out band ``coverage`` (not used to rank).
+    """
+    if not names:
+        raise ForecastError("no candidate methods to choose from")
+    names = tuple(names)
+    backtests, failures = evaluate(y, names, season=season, horizon=horizon, at=at, valid=valid)
+    scores = {
+        n: {
+            **backtests[n].scores(),
+            "coverage": bands.holdout_coverage(backtests[n], quantiles, pool=pool),
+        }
+        for n in names
+    }
+    ok = np.stack([backtests[n].ok for n in names], axis=1)
+    key = np.where(ok, rank_key(scores, names), np.inf)
+    # Stable sort: equal keys keep candidate order. An inf key (failed, or no valid
+    # point to score) keeps the rows ranked but marks them not evaluated.
+    order = np.argsort(key, axis=1, kind="stable")
+    evaluated = np.isfinite(np.take_along_axis(key, order[:, :1], axis=1))[:, 0]
+    return Selection(
+        names=names,
+        order=order,
+        evaluated=evaluated,
+        backtests=backtests,
+        scores=scores,
+        failures=failures,
+    )

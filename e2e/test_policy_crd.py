@@ -117,6 +117,6 @@ def test_short_name_and_printer_columns(crd_installed, control_plane, api_client
     assert "READY" in header and header[-1] == "AGE"
     assert "cols" in out and "Enforce" in out
     # The example policy in the repo is accepted by the real API server as shipped.
-    example = yaml.safe_load((CRD.parents[1] / "examples" / "policy.yaml").read_text())
+    example = yaml.safe_load((CRD.parents[1] / "docs" / "examples" / "policy.yaml").read_text())
     example["metadata"]["namespace"] = namespace
     create(api_client, namespace, example)

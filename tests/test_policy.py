@@ -30,7 +30,7 @@ from floorcast.policy import (
     spec_defaults,
 )
 
-EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "policy.yaml"
+EXAMPLE = Path(__file__).resolve().parents[1] / "docs" / "examples" / "policy.yaml"
 SOURCE = "policies/web.yaml"
 
 _MINIMAL: dict[str, Any] = {

@@ -17,6 +17,7 @@ from floorcast import __version__
 from floorcast.cli.demo import demo
 from floorcast.cli.forecast import forecast
 from floorcast.cli.plan import plan
+from floorcast.cli.run import run
 from floorcast.errors import InputError
 
 
@@ -33,6 +34,7 @@ def app() -> None:
 app.add_command(forecast)
 app.add_command(plan)
 app.add_command(demo)
+app.add_command(run)
 
 
 def fail(message: str, code: int) -> None:

@@ -1,0 +1,153 @@
+"""The operator on the real control plane: raise, dry-run, delete, fall back, adopt, refuse.
+
+Expected floors from DESIGN.md's rule: load 1.5 at perReplica 1 and headroom 0 needs
+2 replicas (the baseline); a peak of 6.5 ten minutes ahead is inside leadTime 15m and
+needs ceil(6.5) = 7.
+"""
+
+from __future__ import annotations
+
+import time
+
+import pandas as pd
+import pytest
+from kubernetes import client as k8s
+
+from e2e.operator_env import (  # noqa: F401  (fixtures)
+    BASELINE,
+    Env,
+    env_fixture,
+    forecast_json,
+    min_replicas,
+    operator_cluster,
+    policy_body,
+)
+
+pytestmark = pytest.mark.e2e
+
+
+def annotations(env: Env) -> dict[str, str]:
+    return {k: v for k, v in (env.hpa().metadata.annotations or {}).items()
+            if k.startswith("floorcast.dev/")}  # fmt: skip
+
+
+def raised(env: Env, name: str = "p") -> None:
+    env.create_workload()
+    env.put_forecast(forecast_json())
+    env.start_operator()
+    env.create_policy(policy_body(name))
+    env.wait(min_replicas(env, 7), "HPA minReplicas raised to 7")
+
+
+def test_enforce_raises_floor_and_hpa_scales_deployment_then_delete_restores(env: Env) -> None:
+    raised(env)
+    assert annotations(env) == {"floorcast.dev/baseline": "2", "floorcast.dev/applied-floor": "7",
+                                "floorcast.dev/policy": "p"}  # fmt: skip
+    assert env.hpa().spec.max_replicas == 10  # never touched
+    apps = k8s.AppsV1Api(env.api)
+    env.wait(lambda: apps.read_namespaced_deployment("web", env.namespace).spec.replicas == 7,
+             "the real HPA controller scales the Deployment to 7")  # fmt: skip
+    st = env.wait(lambda: (env.policy("p").get("status") or {}).get("floor") == 7 and
+                  env.policy("p")["status"], "status.floor 7")  # fmt: skip
+    assert st["baseline"] == BASELINE
+    assert env.condition("p")["status"] == "True"
+    assert env.events("FloorRaised"), "an Event for the raise"
+    # Idle: two more timer ticks (2 s) write nothing to the policy.
+    rv = env.policy("p")["metadata"]["resourceVersion"]
+    before = env.policy("p")
+    time.sleep(5)
+    after = env.policy("p")
+    assert after["metadata"]["resourceVersion"] == rv, (before, after)
+
+    env.custom.delete_namespaced_custom_object("floorcast.dev", "v1alpha1", env.namespace,
+                                               "forecastscalingpolicies", "p")  # fmt: skip
+    env.wait(min_replicas(env, BASELINE), "baseline restored on delete")
+    assert annotations(env) == {}
+
+    def gone() -> bool:
+        try:
+            env.policy("p")
+        except k8s.ApiException as e:
+            return e.status == 404
+        return False
+
+    env.wait(gone, "the policy to be gone (finalizer removed)")
+
+
+def test_dry_run_leaves_hpa_untouched_and_reports_proposal(env: Env) -> None:
+    env.create_workload()
+    env.put_forecast(forecast_json())
+    # The HPA controller writes the HPA's status while it settles; wait for quiet.
+    env.wait(lambda: env.hpa().status.conditions, "HPA controller to report conditions")
+    before = env.hpa().metadata.resource_version
+    env.start_operator()
+    env.create_policy(policy_body("p", mode="DryRun"))
+    env.wait(lambda: (env.policy("p").get("status") or {}).get("proposedFloor") == 7,
+             "status.proposedFloor 7")  # fmt: skip
+    ev = env.wait(lambda: env.events("DryRun"), "a DryRun Event")
+    assert ev[0].message.startswith("would set minReplicas 2 → 7 (peak at "), ev[0].message
+    assert env.condition("p", "Applied")["reason"] == "DryRun"
+    assert "floor" not in env.policy("p")["status"]
+    time.sleep(5)  # two more timer ticks: still nothing written
+    h = env.hpa()
+    assert h.metadata.resource_version == before
+    assert h.spec.min_replicas == BASELINE and annotations(env) == {}
+
+
+@pytest.mark.parametrize("bad", ["stale", "malformed"])
+def test_stale_or_malformed_forecast_restores_baseline(env: Env, bad: str) -> None:
+    raised(env)
+    if bad == "stale":
+        old = pd.Timestamp.now(tz="UTC") - pd.Timedelta("7h")
+        env.put_forecast(forecast_json(generated=old))
+        reason = "ForecastStale"
+    else:
+        env.put_forecast('{"unit": "cores", "points": [oops')
+        reason = "ForecastInvalid"
+    env.wait(min_replicas(env, BASELINE), f"baseline restored ({reason})")
+    assert annotations(env) == {}
+    env.wait(lambda: (env.condition("p") or {}).get("reason") == reason, f"Ready reason {reason}")
+    assert env.condition("p", "ForecastAvailable")["status"] == "False"
+
+
+def test_hand_edit_becomes_new_baseline(env: Env) -> None:
+    raised(env)
+    env.hpas.patch_namespaced_horizontal_pod_autoscaler("web", env.namespace,
+                                                        {"spec": {"minReplicas": 4}})  # fmt: skip
+    env.wait(lambda: annotations(env).get("floorcast.dev/baseline") == "4", "baseline 4 adopted")
+    env.wait(min_replicas(env, 7), "the floor (7 > 4) back in force")
+    env.wait(lambda: env.events("BaselineAdopted"), "a BaselineAdopted Event")
+    env.wait(lambda: env.policy("p")["status"].get("baseline") == 4, "status.baseline 4")
+
+
+def test_two_policies_on_one_hpa_conflict(env: Env) -> None:
+    raised(env, "first")
+    env.create_policy(policy_body("second"))
+    c = env.wait(lambda: (env.condition("second") or {}).get("reason") == "TargetConflict"
+                 and env.condition("second"), "TargetConflict on the later policy")  # fmt: skip
+    assert c["status"] == "False" and "first" in c["message"]
+    env.wait(lambda: (env.condition("first") or {}).get("status") == "True", "first is Ready")
+    assert annotations(env)["floorcast.dev/policy"] == "first"
+
+
+def test_url_outside_allow_list_is_refused(env: Env) -> None:
+    env.create_workload()
+    env.start_operator("--allow-url-host", "forecasts.example.test")
+    env.create_policy(policy_body("p", forecast={"url": "http://10.0.0.1:9/forecast.json"}))
+    c = env.wait(lambda: (env.condition("p") or {}).get("reason") == "UrlNotAllowed"
+                 and env.condition("p"), "UrlNotAllowed")  # fmt: skip
+    assert "10.0.0.1" in c["message"]
+    assert env.hpa().spec.min_replicas == BASELINE
+
+
+def test_forecast_configmap_change_acts_promptly_without_waiting_for_the_timer(env: Env) -> None:
+    env.create_workload()
+    env.put_forecast(forecast_json(peak=1.5))  # flat: floor = baseline
+    env.start_operator("--interval", "300s")
+    env.create_policy(policy_body("p"))
+    env.wait(lambda: (env.condition("p") or {}).get("status") == "True", "Ready")
+    assert env.hpa().spec.min_replicas == BASELINE
+    started = time.monotonic()
+    env.put_forecast(forecast_json(peak=8.5))  # needs 9
+    env.wait(min_replicas(env, 9), "floor raised after the ConfigMap change", timeout=15)
+    assert time.monotonic() - started < 10  # the timer is 300 s: this was the watch

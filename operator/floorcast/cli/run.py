@@ -1,0 +1,70 @@
+"""`floorcast run`: the operator, with every setting as a flag (see controller/settings.py)."""
+
+from __future__ import annotations
+
+import click
+
+from floorcast.durations import parse_duration
+from floorcast.errors import InputError
+
+
+def _interval(value: str) -> float:
+    try:
+        return parse_duration(value, field="--interval").total_seconds()
+    except InputError as e:
+        raise click.BadParameter(e.problem) from None
+
+
+@click.command("run", help="Run the operator (kopf) against the current cluster.")
+@click.option("--dry-run", is_flag=True, help="Operator-wide: never write to any HPA.")
+@click.option(
+    "--namespace",
+    "namespaces",
+    multiple=True,
+    metavar="NS",
+    help="Watch this namespace (repeatable).",
+)
+@click.option("--all-namespaces", is_flag=True, help="Watch every namespace (the default).")
+@click.option("--interval", default="30s", show_default=True, help="Timer between reconciles.")
+@click.option(
+    "--allow-url-host",
+    "hosts",
+    multiple=True,
+    metavar="HOST",
+    help="A host forecast URLs may use (repeatable); none by default.",
+)
+@click.option(
+    "--metrics-port",
+    type=int,
+    default=8080,
+    show_default=True,
+    help="Prometheus metrics port (0: off).",
+)
+@click.option(
+    "--liveness-port",
+    type=int,
+    default=8081,
+    show_default=True,
+    help="Liveness endpoint /healthz port (0: off).",
+)
+@click.option(
+    "--log-format", type=click.Choice(["text", "json"]), default="text", show_default=True
+)
+@click.option("--kubeconfig", type=click.Path(dir_okay=False), default=None,
+              help="Kubeconfig to use (default: in-cluster, then ~/.kube/config).")  # fmt: skip
+def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interval: str,
+        hosts: tuple[str, ...], metrics_port: int, liveness_port: int, log_format: str,
+        kubeconfig: str | None) -> None:  # fmt: skip
+    from floorcast.controller.app import run as run_operator
+    from floorcast.controller.settings import Settings
+
+    if all_namespaces and namespaces:
+        raise click.UsageError("--all-namespaces and --namespace exclude each other")
+    seconds = _interval(interval)
+    if seconds < 1:
+        raise click.BadParameter("must be at least 1s", param_hint="--interval")
+    run_operator(Settings(
+        namespaces=tuple(namespaces), interval_seconds=seconds, allowed_url_hosts=tuple(hosts),
+        dry_run=dry_run, metrics_port=metrics_port or None, liveness_port=liveness_port or None,
+        log_format=log_format, kubeconfig=kubeconfig,
+    ))  # fmt: skip

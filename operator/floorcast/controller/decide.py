@@ -1,0 +1,392 @@
+"""The reconcile decision: observed state in, the writes that should happen out.
+
+Everything the operator decides lives here, with no I/O and no clock (``now`` is a
+field), so every case the operator must get right — raise, lower back, dry-run,
+stale/invalid/missing forecasts, a missing target, a conflict, a hand edit, deletion —
+is a table-driven unit test rather than a cluster experiment. The adapters only
+observe and then carry out the ``Decision``.
+
+Safety rule (DESIGN.md): the HPA is never left worse than it was found. Every failure
+path either leaves it untouched or restores the owner's baseline, and no path writes a
+``minReplicas`` below the baseline. The baseline and the last applied floor live in
+annotations on the HPA, so they survive an operator restart or crash.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from floorcast.controller.conditions import APPLIED, FORECAST_AVAILABLE, READY, Condition, render
+from floorcast.controller.state import (  # noqa: F401  (re-exported)
+    ANN_BASELINE,
+    ANN_FLOOR,
+    ANN_POLICY,
+    ANNOTATION_PREFIX,
+    BASELINE_RESTORED,
+    CAPACITY_UNKNOWN,
+    DRY_RUN,
+    FLOOR_APPLIED,
+    FORECAST_INVALID,
+    FORECAST_MISSING,
+    FORECAST_OK,
+    FORECAST_STALE,
+    OUR_ANNOTATIONS,
+    POLICY_INVALID,
+    STATUS_KEYS,
+    TARGET_CONFLICT,
+    TARGET_NOT_FOUND,
+    URL_NOT_ALLOWED,
+    Decision,
+    Event,
+    ForecastState,
+    HpaPatch,
+    HpaState,
+    Observed,
+)
+from floorcast.core import planning
+from floorcast.durations import format_duration
+from floorcast.errors import InputError
+from floorcast.plans import FloorPlan, plan_policy
+from floorcast.policy import Policy
+from floorcast.timefmt import iso
+
+
+def _int(value: object) -> int | None:
+    try:
+        n = int(str(value))
+    except (TypeError, ValueError):
+        return None
+    return n if n >= 1 else None
+
+
+@dataclass(frozen=True)
+class _Ownership:
+    baseline: int
+    managed: bool  # our annotations are on the HPA
+    hand_edit: Event | None
+
+
+def ownership(hpa: HpaState) -> _Ownership:
+    """Where the owner's baseline is: our annotation, or the HPA's own minReplicas.
+
+    A ``minReplicas`` that differs from the floor we last applied was set by someone
+    else; their value becomes the baseline (the owner's latest word wins).
+    """
+    ann = hpa.annotations or {}
+    base, applied = _int(ann.get(ANN_BASELINE)), _int(ann.get(ANN_FLOOR))
+    managed = any(k in ann for k in OUR_ANNOTATIONS)
+    if base is None or applied is None:
+        return _Ownership(hpa.min_replicas, managed, None)
+    if hpa.min_replicas != applied:
+        msg = (
+            f"minReplicas was changed to {hpa.min_replicas} outside floorcast (last applied "
+            f"floor {applied}); adopting {hpa.min_replicas} as the new baseline (was {base})"
+        )
+        return _Ownership(hpa.min_replicas, True, Event("Normal", "BaselineAdopted", msg))
+    return _Ownership(base, True, None)
+
+
+def _restore(o: _Ownership, hpa: HpaState) -> HpaPatch | None:
+    """Back to the owner's state: baseline in minReplicas, none of our annotations."""
+    if not o.managed and hpa.min_replicas == o.baseline:
+        return None
+    drop = {k: None for k in OUR_ANNOTATIONS}
+    return HpaPatch(o.baseline, drop, hpa.resource_version)
+
+
+def _peak(plan: FloorPlan, now: pd.Timestamp) -> pd.Timestamp:
+    """When the need behind the current floor peaks, for the Event text."""
+    s, spec = plan.schedule, plan.spec
+    i = s.index_at(now)
+    lo = max(0, i - planning.window_steps(pd.Timedelta(spec.hold_time), s.step))
+    hi = min(
+        s.required.shape[1], i + planning.window_steps(pd.Timedelta(spec.lead_time), s.step) + 1
+    )
+    j = lo + int(np.argmax(s.required[0, lo:hi]))
+    return s.start + j * s.step
+
+
+def _forecast_problem(obs: Observed, policy: Policy) -> tuple[str, str] | None:
+    f = obs.forecast
+    if f.series is None:
+        return (f.reason or FORECAST_MISSING, f.message or "no forecast")
+    spec = policy.spec
+    if f.series.generated is not None and obs.now - f.series.generated > spec.forecast.max_age:
+        return (
+            FORECAST_STALE,
+            f"forecast generated at {iso(f.series.generated)} is older than "
+            f"maxAge {format_duration(spec.forecast.max_age)}",
+        )
+    if f.series.end < obs.now + spec.lead_time:
+        return (
+            FORECAST_STALE,
+            f"forecast ends at {iso(f.series.end)}, before now + leadTime "
+            f"({format_duration(spec.lead_time)})",
+        )
+    return None
+
+
+def decide(obs: Observed) -> Decision:
+    """The one reconcile decision; see the module docstring for the rules."""
+    prev = obs.status or {}
+    ref = f"{obs.namespace}/{obs.name}"
+    hpa = obs.hpa
+    mine = hpa.annotations.get(ANN_POLICY) in (None, obs.name)
+    own = ownership(hpa) if hpa.exists else None
+
+    if obs.deleting:
+        patch = _restore(own, hpa) if own and mine and not obs.operator_dry_run else None
+        evs = (
+            (
+                Event(
+                    "Normal",
+                    BASELINE_RESTORED,
+                    f"policy deleted; minReplicas restored to {own.baseline}",
+                ),
+            )
+            if patch and own
+            else ()
+        )
+        return Decision(patch, None, False, evs, f"{ref}: deleted; " + _said(patch))
+
+    policy = obs.policy
+    if policy is None or obs.policy_error:
+        return _finish(
+            obs,
+            None,
+            [_c(READY, False, POLICY_INVALID, obs.policy_error or "invalid")],
+            None,
+            (),
+            f"{ref}: invalid policy",
+            baseline=own and own.baseline,
+        )
+    if obs.conflict_with:
+        msg = (
+            f"HorizontalPodAutoscaler {policy.spec.target_name} is already targeted by "
+            f"policy {obs.conflict_with}, created earlier; this policy writes nothing"
+        )
+        return _finish(
+            obs,
+            None,
+            [_c(READY, False, TARGET_CONFLICT, msg), _c(APPLIED, False, TARGET_CONFLICT, msg)],
+            None,
+            (),
+            f"{ref}: conflict with {obs.conflict_with}",
+        )
+    if not hpa.exists or own is None:
+        msg = f"HorizontalPodAutoscaler {obs.namespace}/{policy.spec.target_name} not found"
+        return _finish(
+            obs,
+            None,
+            [_c(READY, False, TARGET_NOT_FOUND, msg), _c(APPLIED, False, TARGET_NOT_FOUND, msg)],
+            None,
+            (),
+            f"{ref}: target missing",
+        )
+
+    events: list[Event] = [own.hand_edit] if own.hand_edit else []
+    dry = obs.operator_dry_run or policy.spec.mode == "DryRun"
+    write_ok = not obs.operator_dry_run
+    series = obs.forecast.series
+    age = (obs.now - series.generated).total_seconds() if series and series.generated else None
+    problem = _forecast_problem(obs, policy)
+    plan = None
+    if problem is None:
+        if obs.per_replica_error:
+            problem = (CAPACITY_UNKNOWN, obs.per_replica_error)
+        else:
+            try:
+                assert series is not None
+                plan = plan_policy(
+                    policy.spec,
+                    series,
+                    baseline=own.baseline,
+                    hpa_max=hpa.max_replicas,
+                    at=obs.now,
+                    per_replica=obs.per_replica,
+                )
+            except InputError as e:
+                stale = "before now" in str(e)
+                problem = (FORECAST_STALE if stale else FORECAST_INVALID, str(e))
+    extra: dict[str, Any] = {"baseline": own.baseline}
+    if series is not None and series.generated is not None:
+        extra["forecastGenerated"] = iso(series.generated)
+
+    if plan is None:
+        assert problem is not None
+        reason, msg = problem
+        patch = _restore(own, hpa) if write_ok and not dry else None
+        if patch is not None:
+            events.append(
+                Event(
+                    "Normal",
+                    BASELINE_RESTORED,
+                    f"{msg}; minReplicas restored to baseline {own.baseline}",
+                )
+            )
+        applied_reason = DRY_RUN if dry else BASELINE_RESTORED
+        applied_msg = "dry run: no write to the HPA" if dry else f"baseline {own.baseline} in force"
+        if not dry:
+            extra["floor"] = own.baseline
+        conds = [
+            _c(READY, False, reason, msg),
+            _c(FORECAST_AVAILABLE, False, reason, msg),
+            _c(APPLIED, False, applied_reason, applied_msg),
+        ]
+        if _ready_reason(prev) != reason:
+            events.append(Event("Warning", reason, msg))
+        return _finish(
+            obs,
+            patch,
+            conds,
+            extra,
+            events,
+            f"{ref}: {reason}: {msg}; " + _said(patch),
+            baseline=own.baseline,
+            age=age,
+        )
+
+    floor = plan.floor_now
+    nxt = plan.next_change
+    if nxt is not None:
+        extra["nextChange"] = {"at": iso(nxt.at), "replicas": nxt.new}
+    peak = iso(_peak(plan, obs.now))
+    fc_ok = _c(FORECAST_AVAILABLE, True, FORECAST_OK, f"forecast until {iso(series.end)}")
+    if dry:
+        patch = _restore(own, hpa) if write_ok else None  # switching to DryRun restores
+        if patch is not None:
+            events.append(
+                Event(
+                    "Normal",
+                    BASELINE_RESTORED,
+                    f"dry run: minReplicas restored to baseline {own.baseline}",
+                )
+            )
+        current = own.baseline if patch else hpa.min_replicas
+        extra["proposedFloor"] = floor
+        said = (
+            f"would set minReplicas {current} → {floor} (peak at {peak})"
+            if floor != current
+            else f"would keep minReplicas at {current}"
+        )
+        if prev.get("proposedFloor") != floor:
+            events.append(Event("Normal", DRY_RUN, said))
+        why = "operator-wide --dry-run" if obs.operator_dry_run else "mode: DryRun"
+        conds = [
+            _c(READY, True, DRY_RUN, f"{why}; proposed floor {floor}"),
+            fc_ok,
+            _c(APPLIED, False, DRY_RUN, f"{why}: no write to the HPA"),
+        ]
+        return _finish(
+            obs,
+            patch,
+            conds,
+            extra,
+            events,
+            f"{ref}: DryRun {said}",
+            baseline=own.baseline,
+            floor=floor,
+            age=age,
+        )
+
+    extra["floor"] = floor
+    if floor > own.baseline:
+        want = {ANN_BASELINE: str(own.baseline), ANN_FLOOR: str(floor), ANN_POLICY: obs.name}
+        same = all(hpa.annotations.get(k) == v for k, v in want.items())
+        patch = (
+            None
+            if same and hpa.min_replicas == floor
+            else HpaPatch(floor, want, hpa.resource_version)
+        )
+    else:
+        patch = _restore(own, hpa)  # at the baseline: leave the HPA as its owner had it
+    if hpa.min_replicas != floor:
+        verb = "raised" if floor > hpa.min_replicas else "lowered"
+        why = f" (peak at {peak})" if floor > hpa.min_replicas else f" (baseline {own.baseline})"
+        events.append(
+            Event(
+                "Normal",
+                "Floor" + verb.capitalize(),
+                f"{verb} minReplicas {hpa.min_replicas} → {floor}{why}",
+            )
+        )
+    msg = f"floor {floor} (baseline {own.baseline}) in force"
+    conds = [_c(READY, True, FLOOR_APPLIED, msg), fc_ok, _c(APPLIED, True, FLOOR_APPLIED, msg)]
+    return _finish(
+        obs,
+        patch,
+        conds,
+        extra,
+        events,
+        f"{ref}: Enforce {msg}; " + _said(patch),
+        baseline=own.baseline,
+        floor=floor,
+        age=age,
+    )
+
+
+def _c(type_: str, ok: bool, reason: str, message: str) -> Condition:
+    return Condition(type_, ok, reason, message)
+
+
+def _said(patch: HpaPatch | None) -> str:
+    return f"patch minReplicas={patch.min_replicas}" if patch else "no HPA write"
+
+
+def _ready_reason(status: Mapping[str, Any]) -> str | None:
+    for c in status.get("conditions") or []:
+        if isinstance(c, Mapping) and c.get("type") == READY:
+            return c.get("reason")
+    return None
+
+
+def _finish(
+    obs: Observed,
+    patch: HpaPatch | None,
+    conds: list[Condition],
+    extra: Mapping[str, Any] | None,
+    events: Any,
+    log: str,
+    *,
+    baseline: int | None = None,
+    floor: int | None = None,
+    age: float | None = None,
+) -> Decision:
+    prev = obs.status or {}
+    now_iso = iso(obs.now)
+    status: dict[str, Any] = {k: v for k, v in (extra or {}).items() if v is not None}
+    if obs.generation is not None:
+        status["observedGeneration"] = obs.generation
+    if patch is not None:
+        status["lastAppliedTime"] = now_iso
+    elif prev.get("lastAppliedTime"):
+        status["lastAppliedTime"] = prev["lastAppliedTime"]
+    status["conditions"] = render(
+        conds, prev.get("conditions"), now_iso=now_iso, generation=obs.generation
+    )
+    current = {k: prev[k] for k in STATUS_KEYS if prev.get(k) is not None}
+    return Decision(
+        hpa_patch=patch,
+        status=status,
+        status_changed=status != current,
+        events=tuple(events),
+        log=log,
+        floor=floor,
+        baseline=baseline,
+        forecast_age_seconds=age,
+    )
+
+
+def conflict_winner(me: tuple[str, str], rivals: list[tuple[str, str]]) -> str | None:
+    """The earlier policy on the same HPA, if any: ordered by (creationTimestamp, name).
+
+    RFC 3339 UTC timestamps from the API server sort as text. ``me`` and ``rivals``
+    are ``(creationTimestamp, name)``; ``None`` means this policy is the one that acts.
+    """
+    first = min([me, *rivals])
+    return None if first == me else first[1]

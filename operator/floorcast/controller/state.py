@@ -1,0 +1,123 @@
+"""What the reconcile decision reads and returns: plain data, shared by decide and adapters.
+
+Kept apart from ``decide`` so the adapters in ``kube/`` can build ``Observed`` and carry
+out a ``Decision`` without importing the decision logic itself.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import pandas as pd
+
+from floorcast.core.series import Series
+from floorcast.policy import Policy
+
+ANNOTATION_PREFIX = "floorcast.dev/"
+ANN_BASELINE = ANNOTATION_PREFIX + "baseline"
+ANN_FLOOR = ANNOTATION_PREFIX + "applied-floor"
+ANN_POLICY = ANNOTATION_PREFIX + "policy"
+OUR_ANNOTATIONS = (ANN_BASELINE, ANN_FLOOR, ANN_POLICY)
+#: The status keys this operator owns; anything else under status is left alone.
+STATUS_KEYS = (
+    "observedGeneration",
+    "floor",
+    "baseline",
+    "proposedFloor",
+    "nextChange",
+    "forecastGenerated",
+    "lastAppliedTime",
+    "conditions",
+)
+
+# Condition reasons (CamelCase, per the API conventions).
+FORECAST_MISSING, FORECAST_INVALID, FORECAST_STALE = (
+    "ForecastMissing",
+    "ForecastInvalid",
+    "ForecastStale",
+)
+URL_NOT_ALLOWED, TARGET_NOT_FOUND, TARGET_CONFLICT = (
+    "UrlNotAllowed",
+    "TargetNotFound",
+    "TargetConflict",
+)
+DRY_RUN, POLICY_INVALID, CAPACITY_UNKNOWN = "DryRun", "PolicyInvalid", "CapacityUnknown"
+FLOOR_APPLIED, BASELINE_RESTORED, FORECAST_OK = "FloorApplied", "BaselineRestored", "ForecastLoaded"
+
+
+@dataclass(frozen=True)
+class HpaState:
+    """The target HPA as read; ``min_replicas`` is the API default (1) when unset."""
+
+    exists: bool
+    min_replicas: int = 1
+    max_replicas: int = 1
+    annotations: Mapping[str, str] = field(default_factory=dict)
+    resource_version: str | None = None
+
+
+@dataclass(frozen=True)
+class ForecastState:
+    """Either a parsed forecast or why there is none (a condition reason + message)."""
+
+    series: Series | None = None
+    reason: str | None = None
+    message: str = ""
+
+
+@dataclass(frozen=True)
+class Observed:
+    name: str
+    namespace: str
+    policy: Policy | None
+    hpa: HpaState
+    forecast: ForecastState
+    now: pd.Timestamp
+    status: Mapping[str, Any] = field(default_factory=dict)
+    generation: int | None = None
+    policy_error: str | None = None
+    operator_dry_run: bool = False
+    conflict_with: str | None = None
+    deleting: bool = False
+    per_replica: float | None = None
+    per_replica_error: str | None = None
+
+
+@dataclass(frozen=True)
+class HpaPatch:
+    """A JSON merge patch of ``spec.minReplicas`` and our annotations only.
+
+    ``resourceVersion`` in a merge patch is a precondition: the API server answers 409
+    if the HPA changed since it was read, and the caller re-reads and re-decides.
+    """
+
+    min_replicas: int
+    annotations: Mapping[str, str | None]
+    resource_version: str | None
+
+    def body(self) -> dict[str, Any]:
+        meta: dict[str, Any] = {"annotations": dict(self.annotations)}
+        if self.resource_version is not None:
+            meta["resourceVersion"] = self.resource_version
+        return {"metadata": meta, "spec": {"minReplicas": self.min_replicas}}
+
+
+@dataclass(frozen=True)
+class Event:
+    type: str  # "Normal" or "Warning"
+    reason: str
+    message: str
+
+
+@dataclass(frozen=True)
+class Decision:
+    hpa_patch: HpaPatch | None
+    status: dict[str, Any] | None  # the full desired status; None: leave it (deleting)
+    status_changed: bool
+    events: tuple[Event, ...]
+    log: str
+    floor: int | None = None
+    baseline: int | None = None
+    forecast_age_seconds: float | None = None

@@ -1,0 +1,57 @@
+"""The target HPA: read it as autoscaling/v2, and patch only what floorcast owns.
+
+The patch is a JSON merge patch of ``spec.minReplicas`` and ``floorcast.dev/*``
+annotations, never ``maxReplicas`` or metrics, carrying ``metadata.resourceVersion``
+as a precondition: if someone edited the HPA since we read it, the API server answers
+409 Conflict and the caller re-reads and decides again on fresh state.
+"""
+
+from __future__ import annotations
+
+from kubernetes import client as k8s
+from kubernetes.client.rest import ApiException
+
+from floorcast.controller.state import HpaPatch, HpaState
+
+MERGE_PATCH = "application/merge-patch+json"
+FIELD_MANAGER = "floorcast"
+
+
+class Conflict(Exception):
+    """The HPA changed under us (HTTP 409); re-read and re-decide."""
+
+
+def read_hpa(api: k8s.ApiClient, namespace: str, name: str, *, timeout: float) -> HpaState:
+    try:
+        h = k8s.AutoscalingV2Api(api).read_namespaced_horizontal_pod_autoscaler(
+            name, namespace, _request_timeout=timeout
+        )
+    except ApiException as e:
+        if e.status == 404:
+            return HpaState(exists=False)
+        raise
+    return HpaState(
+        exists=True,
+        min_replicas=h.spec.min_replicas if h.spec.min_replicas is not None else 1,
+        max_replicas=h.spec.max_replicas,
+        annotations=dict(h.metadata.annotations or {}),
+        resource_version=h.metadata.resource_version,
+    )
+
+
+def patch_hpa(
+    api: k8s.ApiClient, namespace: str, name: str, patch: HpaPatch, *, timeout: float
+) -> None:
+    try:
+        k8s.AutoscalingV2Api(api).patch_namespaced_horizontal_pod_autoscaler(
+            name,
+            namespace,
+            patch.body(),
+            field_manager=FIELD_MANAGER,
+            _content_type=MERGE_PATCH,
+            _request_timeout=timeout,
+        )
+    except ApiException as e:
+        if e.status == 409:
+            raise Conflict(f"HPA {namespace}/{name} changed since it was read") from None
+        raise

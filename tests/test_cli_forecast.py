@@ -138,4 +138,4 @@ def test_too_short_history_is_a_clear_error(tmp_path, capsys):
         capsys,
     )  # fmt: skip
     assert code == 2, err
-    assert "observations" in err or "too short" in err, err
+    assert "short.csv" in err and "at least 288" in err, err

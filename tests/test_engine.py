@@ -264,13 +264,17 @@ def test_planned_event_in_history_is_not_repeated(registry):
     y[sale] *= 3
     hist = Series(start=T0, step=STEP, values=y)
     window = (T0 + 6 * DAY * STEP + 100 * STEP, T0 + 6 * DAY * STEP + 160 * STEP)
-    plain = forecast_series(hist, horizon=DAY, season=DAY, method="seasonal-naive")
-    masked = forecast_series(
-        hist, horizon=DAY, season=DAY, method="seasonal-naive", event_windows=[window]
-    )
+    # Without outlier clipping, only the mask keeps the sale out of tomorrow.
+    raw = Options(clip=False)
+    kw = {"horizon": DAY, "season": DAY, "method": "seasonal-naive", "options": raw}
+    plain = forecast_series(hist, **kw)
+    masked = forecast_series(hist, event_windows=[window], **kw)
     assert plain.values.max() > 25  # the sale copied into tomorrow
     assert masked.values.max() < 16  # the usual daily peak of ~15
     assert masked.meta["preprocess"]["masked"] == 60
+    # With the default per-phase clipping, a 3× one-off burst is also caught unmasked.
+    clipped = forecast_series(hist, horizon=DAY, season=DAY, method="seasonal-naive")
+    assert clipped.values.max() < 16 and clipped.meta["preprocess"]["clipped"] >= 50
 
 
 def test_gap_filled_points_are_not_scored(registry):

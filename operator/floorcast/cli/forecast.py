@@ -204,15 +204,22 @@ def forecast(**o: Any) -> None:
         histories = [read_history(o["history"], max_gap=max_gap)]
         names = [Path(o["history"]).stem]
     with console.status(f"forecasting {len(histories)} series ({o['method']})"):
-        result = forecast_batch(
-            histories,
-            horizon=o["horizon"],
-            method=o["method"],
-            season=season,
-            quantiles=quantiles,
-            event_windows=windows or None,
-            generated=generated,
-        )
+        try:
+            result = forecast_batch(
+                histories,
+                horizon=o["horizon"],
+                method=o["method"],
+                season=season,
+                quantiles=quantiles,
+                event_windows=windows or None,
+                generated=generated,
+            )
+        except InputError as e:
+            if e.source:
+                raise
+            # The engine speaks of series by row; say which file (or folder) that is.
+            where = histories[0].source if len(histories) == 1 else str(o["history_dir"])
+            raise InputError(str(e), source=where) from None
     if o["evaluate"]:
         if o["as_json"]:
             doc = {n: {"chosen": result.method[i], "scores": result.scores[i]}

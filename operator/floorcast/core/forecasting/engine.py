@@ -46,7 +46,11 @@ class Options:
     clip: bool = True
     clip_k: float = preprocess.DEFAULT_CLIP_K
     clip_window: int = preprocess.DEFAULT_CLIP_WINDOW
-    clip_how: str = "rolling"
+    # "auto": the same phase of the season when there is one, else a rolling median.
+    # A fixed rolling window is a different span of time at every step size: at 30-min
+    # steps 7 points are 3.5 h, across which a real morning ramp looks like an outlier
+    # (on the Taylor benchmark it clipped true peaks by up to 7 % and tripled MASE).
+    clip_how: str = "auto"
     pool: int | None = None  # horizon steps pooled per band block (None: bands.default_pool)
 
 
@@ -278,7 +282,7 @@ def _forecast_group(
         clip=opt.clip,
         clip_k=opt.clip_k,
         clip_window=opt.clip_window,
-        clip_how=opt.clip_how,
+        clip_how=opt.clip_how if opt.clip_how != "auto" else ("phase" if season else "rolling"),
         min_length=max(2, season),
     )
     valid = ~prep.excluded

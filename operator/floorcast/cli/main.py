@@ -14,6 +14,7 @@ import sys
 import click
 
 from floorcast import __version__
+from floorcast.cli.backtest import backtest
 from floorcast.cli.demo import demo
 from floorcast.cli.forecast import forecast
 from floorcast.cli.plan import plan
@@ -35,6 +36,7 @@ app.add_command(forecast)
 app.add_command(plan)
 app.add_command(demo)
 app.add_command(run)
+app.add_command(backtest)
 
 
 def fail(message: str, code: int) -> None:

@@ -1,0 +1,200 @@
+"""``floorcast backtest``: what floors would have bought and cost on recorded load.
+
+Replays the history through the documented reactive HPA three ways — alone, with
+floorcast's floors (from rolling forecasts that never see the future) and with a
+static peak-sized floor — so the engineer sees under-capacity minutes against
+replica-hours before anything touches production.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from datetime import timedelta
+from pathlib import Path
+from typing import Any
+
+import click
+from rich.console import Console
+from rich.table import Table
+
+from floorcast import replay
+from floorcast.durations import format_duration, parse_duration
+from floorcast.errors import InputError
+from floorcast.hpa_manifest import load_hpa_file
+from floorcast.policy import load_policy_file
+from floorcast.sources.files import read_history
+from floorcast.timefmt import iso, parse_rfc3339
+
+HELP = "Replay history through the reactive HPA, with and without floors."
+KEYS = ("under_capacity_minutes", "over_target_minutes", "replica_hours",
+        "peak_utilization", "scale_events")  # fmt: skip
+
+
+def parse_sweep(
+    items: tuple[str, ...], lead: timedelta, headroom: float
+) -> list[tuple[timedelta, float]]:
+    """``leadTime=2m,5m headroom=0,0.1`` -> the grid's (lead, headroom) pairs."""
+    leads, heads = [lead], [headroom]
+    for item in items:
+        key, _, vals = item.partition("=")
+        parts = [v for v in vals.split(",") if v]
+        if not parts:
+            raise InputError(f"--sweep {item!r}: expected NAME=V1,V2,...")
+        if key == "leadTime":
+            leads = [parse_duration(v, field="--sweep leadTime") for v in parts]
+        elif key == "headroom":
+            try:
+                heads = [float(v) for v in parts]
+            except ValueError:
+                raise InputError(f"--sweep headroom: not a number in {vals!r}") from None
+            if any(h < 0 for h in heads):
+                raise InputError("--sweep headroom: values must be >= 0")
+        else:
+            raise InputError(f"--sweep: unknown setting {key!r} (use leadTime or headroom)")
+    return [(ld, h) for ld in leads for h in heads]
+
+
+def _summary(r: replay.Result) -> dict[str, Any]:
+    doc: dict[str, Any] = {
+        "start": iso(r.start),
+        "end": iso(r.end),
+        "sync_seconds": r.sync.total_seconds(),
+        "pod_startup": format_duration(r.pod_startup),
+        "baseline": r.bounds.baseline,
+        "ceiling": r.bounds.ceiling,
+        "static_floor": r.static_floor,
+    }
+    for name in ("reactive", "static_peak", "floorcast"):
+        doc[name] = r.scores[r.row(name)]
+    doc["floorcast"] = {**doc["floorcast"], "forecast_error": r.forecast_error}
+    if r.sweep:
+        doc["sweep"] = [
+            {**row, "leadTime": format_duration(row["leadTime"].to_pytimedelta())}
+            for row in r.sweep
+        ]
+    return doc
+
+
+@click.command("backtest", help=HELP)
+@click.option("-f", "--filename", "policy_file", required=True, type=click.Path(path_type=Path),
+              help="Policy YAML.")  # fmt: skip
+@click.option("--history", required=True, type=click.Path(path_type=Path), help="History CSV/JSON.")
+@click.option("--hpa", "hpa_file", default=None, type=click.Path(path_type=Path),
+              help="The autoscaling/v2 HPA manifest the policy targets.")  # fmt: skip
+@click.option(
+    "--baseline", default=None, type=click.IntRange(min=1), help="HPA minReplicas [HPA or 1]."
+)
+@click.option("--hpa-max", default=None, type=click.IntRange(min=1),
+              help="HPA maxReplicas [HPA, policy maxReplicas or 100].")  # fmt: skip
+@click.option("--target-utilization", default=None, type=click.FloatRange(min=0, min_open=True),
+              help="HPA CPU target in percent [HPA, or 80].")  # fmt: skip
+@click.option("--per-replica", default=None, type=float,
+              help="Per-replica capacity, for a capacity.fromHPA policy.")  # fmt: skip
+@click.option("--pod-startup", default=None, help="Time until a new pod serves [policy leadTime].")
+@click.option("--forecast-method", default="auto",
+              type=click.Choice(["auto", "seasonal-naive", "fourier", "holt-winters"]))  # fmt: skip
+@click.option("--cadence", default="24h", show_default=True, help="Re-forecast every.")
+@click.option("--start", default=None, help="RFC 3339 start of the replay.")
+@click.option("--end", default=None, help="RFC 3339 end of the replay.")
+@click.option("--sweep", multiple=True, help="e.g. leadTime=2m,5m,10m headroom=0,0.1,0.2")
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
+@click.option(
+    "--report", default=None, type=click.Path(path_type=Path), help="Write an HTML report."
+)
+@click.argument("extra", nargs=-1)
+def backtest(policy_file: Path, history: Path, hpa_file: Path | None, baseline: int | None,
+             hpa_max: int | None, target_utilization: float | None, per_replica: float | None,
+             pod_startup: str | None, forecast_method: str, cadence: str, start: str | None,
+             end: str | None, sweep: tuple[str, ...], as_json: bool, report: Path | None,
+             extra: tuple[str, ...]) -> None:  # fmt: skip
+    policy = load_policy_file(policy_file)
+    spec = policy.spec
+    hpa = load_hpa_file(hpa_file) if hpa_file is not None else None
+    # --sweep leadTime=... headroom=... : the second word arrives as an argument.
+    sweep_items = (*sweep, *extra)
+    if any("=" not in x for x in extra):
+        raise InputError(f"unexpected argument(s): {' '.join(extra)}")
+    cap = per_replica if per_replica is not None else spec.capacity.per_replica
+    if cap is None:
+        raise InputError("capacity.fromHPA needs the pods' CPU requests; pass --per-replica")
+    if cap <= 0:
+        raise InputError(f"--per-replica must be > 0, got {cap}")
+    target = (target_utilization / 100.0 if target_utilization is not None
+              else hpa.target_utilization if hpa else 0.8)  # fmt: skip
+    kw: dict[str, Any] = {}
+    if hpa is not None:
+        kw = {"scale_up": hpa.scale_up, "scale_down": hpa.scale_down}
+    setup = replay.Setup(
+        baseline=baseline or (hpa.min_replicas if hpa else 1),
+        hpa_max=hpa_max or (hpa.max_replicas if hpa else (spec.max_replicas or 100)),
+        target_utilization=target,
+        per_replica=float(cap),
+        pod_startup=parse_duration(pod_startup, field="--pod-startup") if pod_startup else None,
+        method=forecast_method,
+        cadence=parse_duration(cadence, field="--cadence"),
+        start=parse_rfc3339(start, field="--start") if start else None,
+        end=parse_rfc3339(end, field="--end") if end else None,
+        **kw,
+    )
+    grid = parse_sweep(sweep_items, spec.lead_time, spec.headroom) if sweep_items else []
+    hist = read_history(history)
+    err = Console(stderr=True)
+    if sys.stderr.isatty() and not as_json:
+        with err.status("back-testing") as status:
+            result = replay.run(spec, hist, setup, sweep=grid, progress=status.update)
+    else:
+        result = replay.run(spec, hist, setup, sweep=grid)
+    name = f"{policy.namespace}/{policy.name}"
+    if report is not None:
+        from floorcast.cli.report import write_report
+
+        write_report(result, report, title=name, target=target)
+    if as_json:
+        doc = {"policy": name, "target_utilization": target, **_summary(result)}
+        click.echo(json.dumps(doc, indent=2))
+        return
+    print_summary(result, name, target, Console())
+    if report is not None:
+        err.print(f"report written to {report}")
+
+
+def print_summary(r: replay.Result, name: str, target: float, console: Console) -> None:
+    console.print(
+        f"[bold]{name}[/bold]  {iso(r.start)} → {iso(r.end)}  HPA target {target:.0%}, "
+        f"baseline {r.bounds.baseline}, ceiling {r.bounds.ceiling}, "
+        f"pods serve {format_duration(r.pod_startup)} after creation"
+    )
+    t = Table("scenario", "under capacity (min)", "over target (min)", "replica-hours",
+              "peak util.", "scale events")  # fmt: skip
+    labels = {"reactive": "HPA alone", "static_peak": f"static floor {r.static_floor}",
+              "floorcast": "HPA + floorcast"}  # fmt: skip
+    for key in ("reactive", "static_peak", "floorcast"):
+        s = r.scores[r.row(key)]
+        t.add_row(
+            labels[key],
+            f"{s['under_capacity_minutes']:.1f}",
+            f"{s['over_target_minutes']:.1f}",
+            f"{s['replica_hours']:.1f}",
+            f"{s['peak_utilization']:.0%}",
+            str(s["scale_events"]),
+        )
+    console.print(t)
+    e = r.forecast_error
+    if e.get("mae") is not None:
+        mase = f"{e['mase']:.2f}" if e["mase"] is not None else "n/a"
+        console.print(
+            f"forecasts: {e['forecasts']} ({', '.join(e['methods'])}), MAE {e['mae']:.3g}, "
+            f"MASE {mase}, actual within upper band {e['upper_coverage']:.0%}"
+        )
+    if r.sweep:
+        base = r.scores[r.row("reactive")]
+        title = f"trade-off (pods start in {format_duration(r.pod_startup)} in every row)"
+        st = Table("leadTime", "headroom", "under capacity (min)", "replica-hours",
+                   "vs HPA alone", title=title)  # fmt: skip
+        for row in r.sweep:
+            extra = row["replica_hours"] - base["replica_hours"]
+            st.add_row(format_duration(row["leadTime"].to_pytimedelta()), f"{row['headroom']:g}",
+                       f"{row['under_capacity_minutes']:.1f}", f"{row['replica_hours']:.1f}",
+                       f"{extra:+.1f} h")  # fmt: skip
+        console.print(st)

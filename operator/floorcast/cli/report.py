@@ -1,0 +1,124 @@
+"""A self-contained HTML back-test report: one file, plots embedded as base64 PNG.
+
+Meant to be mailed or attached to a change request, so it references nothing outside
+itself (no scripts, stylesheets or images to fetch).
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt
+import numpy as np
+import pandas as pd
+
+from floorcast.replay import Result
+
+COLORS = {"reactive": "tab:red", "static_peak": "tab:grey", "floorcast": "tab:blue"}
+LABELS = {
+    "reactive": "HPA alone",
+    "static_peak": "static peak floor",
+    "floorcast": "HPA + floorcast",
+}
+
+
+def _png(fig: plt.Figure) -> str:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=90)
+    plt.close(fig)
+    return base64.b64encode(buf.getvalue()).decode("ascii")
+
+
+def _plots(r: Result, target: float) -> str:
+    t = pd.date_range(r.start, periods=len(r.demand), freq=r.sync).tz_localize(None)
+    # Thin to at most ~4000 points per line: the picture is the same, the file small.
+    every = max(1, len(t) // 4000)
+    t = t[::every]
+    fig, axes = plt.subplots(3, 1, figsize=(12, 9), sharex=True)
+    ax = axes[0]
+    ax.plot(t, r.demand[::every], color="black", lw=0.8, label="demand")
+    ax.set_ylabel("load")
+    ax.set_title("Recorded load")
+    ax2 = axes[1]
+    for key in ("reactive", "static_peak", "floorcast"):
+        i = r.row(key)
+        ax2.step(t, r.trace.replicas[i, ::every], where="post", color=COLORS[key], lw=1.0,
+                 label=LABELS[key])  # fmt: skip
+    ax2.step(t, r.minimum[r.row("floorcast"), ::every], where="post", color="tab:blue", lw=0.6,
+             ls=":", label="floorcast floor (minReplicas)")  # fmt: skip
+    ax2.set_ylabel("replicas")
+    ax2.set_title("Replicas per scenario")
+    ax3 = axes[2]
+    for key in ("reactive", "floorcast"):
+        i = r.row(key)
+        ready = r.trace.ready[i, ::every].astype(float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            util = target * r.demand[::every] / (ready * r.per_replica)
+        ax3.plot(t, util * 100, color=COLORS[key], lw=0.7, label=LABELS[key])
+    ax3.axhline(target * 100, color="black", ls="--", lw=0.8, label="HPA target")
+    ax3.axhline(100, color="tab:red", ls=":", lw=0.8, label="100 % (under capacity above)")
+    ax3.set_ylabel("utilization of ready pods (%)")
+    ax3.set_title("Utilization vs target")
+    for a in axes:
+        a.grid(alpha=0.3)
+        a.legend(loc="upper left", fontsize=8)
+    fig.autofmt_xdate()
+    fig.tight_layout()
+    return _png(fig)
+
+
+def write_report(r: Result, out: Path, *, title: str, target: float) -> None:
+    rows = []
+    for key in ("reactive", "static_peak", "floorcast"):
+        s = r.scores[r.row(key)]
+        rows.append(
+            f"<tr><td>{LABELS[key]}</td><td>{s['under_capacity_minutes']:.1f}</td>"
+            f"<td>{s['over_target_minutes']:.1f}</td><td>{s['replica_hours']:.1f}</td>"
+            f"<td>{s['peak_utilization']:.0%}</td><td>{s['scale_events']}</td></tr>"
+        )
+    e = r.forecast_error
+    err = (
+        f"<p>Floors came from {e['forecasts']} rolling forecasts ({', '.join(e['methods'])}), "
+        f"each made only from history before its time: MAE {e['mae']:.3g}, MASE "
+        f"{e['mase'] if e['mase'] is None else round(e['mase'], 2)}, actual within the upper "
+        f"band {e['upper_coverage']:.0%}.</p>"
+        if e.get("mae") is not None
+        else ""
+    )
+    sweep = ""
+    if r.sweep:
+        cells = "".join(
+            f"<tr><td>{row['leadTime']}</td><td>{row['headroom']:g}</td>"
+            f"<td>{row['under_capacity_minutes']:.1f}</td><td>{row['replica_hours']:.1f}</td></tr>"
+            for row in r.sweep
+        )
+        sweep = (
+            "<h2>Trade-off</h2><table><tr><th>leadTime</th><th>headroom</th>"
+            f"<th>under capacity (min)</th><th>replica-hours</th></tr>{cells}</table>"
+        )
+    doc = f"""<!doctype html>
+<html><head><meta charset="utf-8"><title>floorcast backtest: {html.escape(title)}</title>
+<style>body{{font-family:sans-serif;max-width:1200px;margin:2em auto;color:#222}}
+table{{border-collapse:collapse}}td,th{{border:1px solid #ccc;padding:4px 10px;text-align:right}}
+td:first-child{{text-align:left}}</style></head><body>
+<h1>Back-test: {html.escape(title)}</h1>
+<p>{r.start:%Y-%m-%d %H:%M} to {r.end:%Y-%m-%d %H:%M} UTC, HPA target {target:.0%},
+baseline {r.bounds.baseline}, ceiling {r.bounds.ceiling}, static floor {r.static_floor},
+pods serve {r.pod_startup} after creation. Start every policy in DryRun and follow
+your change process before Enforce.</p>
+<table><tr><th>scenario</th><th>under capacity (min)</th><th>over target (min)</th>
+<th>replica-hours</th><th>peak utilization</th><th>scale events</th></tr>{"".join(rows)}</table>
+{err}{sweep}
+<img alt="load, replicas and utilization" style="max-width:100%"
+ src="data:image/png;base64,{_plots(r, target)}">
+</body></html>
+"""
+    out.parent.mkdir(parents=True, exist_ok=True)
+    out.write_text(doc, encoding="utf-8")

@@ -1,0 +1,103 @@
+"""`floorcast backtest`: the JSON contract, the HPA manifest, the report, bad input."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from floorcast import scenario
+from floorcast.cli.main import main
+from floorcast.errors import InputError
+from floorcast.hpa_manifest import load_hpa_file
+
+POLICY = "operator/floorcast/data/shop/storefront.yaml"
+HPA = """\
+apiVersion: autoscaling/v2
+kind: HorizontalPodAutoscaler
+metadata: {name: storefront, namespace: shop}
+spec:
+  scaleTargetRef: {apiVersion: apps/v1, kind: Deployment, name: storefront}
+  minReplicas: 2
+  maxReplicas: 25
+  metrics:
+    - type: Resource
+      resource: {name: cpu, target: {type: Utilization, averageUtilization: 70}}
+  behavior:
+    scaleDown:
+      stabilizationWindowSeconds: 120
+"""
+
+
+def run(argv: list[str], capsys) -> tuple[int, str, str]:
+    with pytest.raises(SystemExit) as e:
+        main(argv)
+        raise SystemExit(0)
+    out = capsys.readouterr()
+    return int(e.value.code or 0), out.out, out.err
+
+
+@pytest.fixture(scope="module")
+def history(tmp_path_factory) -> Path:
+    p = tmp_path_factory.mktemp("bt") / "storefront.csv"
+    p.write_text(scenario.history_csv("storefront", step="5min"))
+    return p
+
+
+def test_json_has_the_contract_keys(history, tmp_path, capsys):
+    hpa = tmp_path / "hpa.yaml"
+    hpa.write_text(HPA)
+    code, out, err = run(["backtest", "-f", POLICY, "--history", str(history), "--hpa", str(hpa),
+                          "--forecast-method", "seasonal-naive", "--json"], capsys)  # fmt: skip
+    assert code == 0, err
+    doc = json.loads(out)
+    for name in ("reactive", "floorcast", "static_peak"):
+        for key in ("under_capacity_minutes", "over_target_minutes", "replica_hours",
+                    "peak_utilization", "scale_events"):  # fmt: skip
+            assert key in doc[name]
+    assert doc["baseline"] == 2 and doc["target_utilization"] == 0.7
+    assert doc["floorcast"]["forecast_error"]["forecasts"] == 7
+    # The demo's peaks outrun the reactive HPA; floors must not be worse.
+    fc, re_ = doc["floorcast"], doc["reactive"]
+    assert fc["under_capacity_minutes"] <= re_["under_capacity_minutes"]
+
+
+def test_sweep_table_and_self_contained_report(history, tmp_path, capsys):
+    out_html = tmp_path / "r.html"
+    code, out, err = run(["backtest", "-f", POLICY, "--history", str(history), "--baseline", "2",
+                          "--target-utilization", "70", "--forecast-method", "seasonal-naive",
+                          "--report", str(out_html),
+                          "--sweep", "leadTime=5m,15m", "headroom=0,0.2"],
+                         capsys)  # fmt: skip
+    assert code == 0, err
+    assert "trade-off" in out and "15m" in out
+    page = out_html.read_text()
+    assert "data:image/png;base64," in page
+    assert "http://" not in page and "https://" not in page and "<script" not in page
+
+
+def test_bad_history_exits_2_with_one_line(tmp_path, capsys):
+    bad = tmp_path / "h.csv"
+    bad.write_text("timestamp,value\n2026-01-01T00:00:00Z,1\n2026-01-01T00:05:00Z,nan\n")
+    code, out, err = run(["backtest", "-f", POLICY, "--history", str(bad)], capsys)
+    assert code == 2 and out == ""
+    assert len(err.strip().splitlines()) == 1 and "h.csv" in err
+
+
+def test_hpa_manifest_defaults_and_errors(tmp_path):
+    p = tmp_path / "hpa.yaml"
+    p.write_text(HPA)
+    h = load_hpa_file(p)
+    assert (h.min_replicas, h.max_replicas, h.target_utilization) == (2, 25, 0.7)
+    # Unset fields keep [HPA doc] "Default behavior" values.
+    assert h.scale_down.stabilization_window_seconds == 120
+    assert h.scale_up.policies[1].value == 4 and h.scale_up.stabilization_window_seconds == 0
+    p.write_text(HPA.replace("averageUtilization: 70", "averageUtilization: high"))
+    with pytest.raises(
+        InputError, match=r"hpa.yaml: spec.metrics\[0\].resource.target.averageUtilization"
+    ):
+        load_hpa_file(p)
+    p.write_text(HPA.replace("stabilizationWindowSeconds: 120", "stabilizationWindowSeconds: 7200"))
+    with pytest.raises(InputError, match="between 0 and 3600"):
+        load_hpa_file(p)

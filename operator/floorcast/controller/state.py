@@ -56,6 +56,10 @@ class HpaState:
     max_replicas: int = 1
     annotations: Mapping[str, str] = field(default_factory=dict)
     resource_version: str | None = None
+    #: For capacity.fromHPA: the CPU metric's averageUtilization target (percent), and
+    #: the scaleTargetRef as (apiVersion, kind, name).
+    cpu_target_utilization: int | None = None
+    scale_target: tuple[str, str, str] | None = None
 
 
 @dataclass(frozen=True)

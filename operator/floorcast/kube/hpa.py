@@ -30,13 +30,25 @@ def read_hpa(api: k8s.ApiClient, namespace: str, name: str, *, timeout: float) -
         if e.status == 404:
             return HpaState(exists=False)
         raise
+    ref = h.spec.scale_target_ref
     return HpaState(
         exists=True,
         min_replicas=h.spec.min_replicas if h.spec.min_replicas is not None else 1,
         max_replicas=h.spec.max_replicas,
         annotations=dict(h.metadata.annotations or {}),
         resource_version=h.metadata.resource_version,
+        cpu_target_utilization=_cpu_target(h),
+        scale_target=(ref.api_version or "", ref.kind, ref.name) if ref else None,
     )
+
+
+def _cpu_target(h: k8s.V2HorizontalPodAutoscaler) -> int | None:
+    """The Resource metric on cpu with a Utilization target, if the HPA has one."""
+    for m in h.spec.metrics or []:
+        r = m.resource if m.type == "Resource" else None
+        if r is not None and r.name == "cpu" and r.target.type == "Utilization":
+            return r.target.average_utilization
+    return None
 
 
 def patch_hpa(

@@ -25,6 +25,8 @@ from floorcast.errors import InputError
 from floorcast.policy import PolicySpec
 
 Progress = Callable[[str], None]
+#: How many times ``run`` reports progress (one call as each phase starts).
+PHASES = 3
 _DAY = pd.Timedelta(days=1)
 _FIVE_MIN = pd.Timedelta(minutes=5)
 

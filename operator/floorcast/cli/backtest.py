@@ -16,6 +16,7 @@ from typing import Any
 
 import click
 from rich.console import Console
+from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
 from floorcast import replay
@@ -141,8 +142,18 @@ def backtest(policy_file: Path, history: Path, hpa_file: Path | None, baseline: 
     hist = read_history(history)
     err = Console(stderr=True)
     if sys.stderr.isatty() and not as_json:
-        with err.status("back-testing") as status:
-            result = replay.run(spec, hist, setup, sweep=grid, progress=status.update)
+        # One bar over replay's phases (forecast, plan, simulate, measure): the work
+        # inside each is one vectorized call, so finer ticks would be invented.
+        with Progress(
+            TextColumn("{task.description}"), BarColumn(), TimeElapsedColumn(),
+            console=err, transient=True,
+        ) as bar:  # fmt: skip
+            task = bar.add_task("back-testing", total=replay.PHASES)
+
+            def step(msg: str) -> None:
+                bar.update(task, description=msg, advance=1)
+
+            result = replay.run(spec, hist, setup, sweep=grid, progress=step)
     else:
         result = replay.run(spec, hist, setup, sweep=grid)
     name = f"{policy.namespace}/{policy.name}"

@@ -4,7 +4,7 @@ PYTHON ?= python3
 VENV ?= .venv
 BIN := $(VENV)/bin
 
-.PHONY: demo test unit e2e lint controlplane bench clean
+.PHONY: demo test unit e2e lint controlplane bench clean manifests
 
 $(BIN)/.installed: pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -38,3 +38,7 @@ bench: $(BIN)/.installed
 
 clean:
 	rm -rf $(VENV) .pytest_cache .ruff_cache .hypothesis floorcast-demo
+
+## manifests: regenerate docs/install/ (plain kubectl manifests) from the chart's defaults
+manifests: $(BIN)/.installed
+	$(BIN)/python -m e2e.manifests

@@ -62,12 +62,13 @@ def pytest_collection_finish(session: pytest.Session) -> None:
         return
     if not any(_is_e2e(item) for item in session.items):
         return
-    if all(p.exists() for p in build.binaries().all()):
+    if all(p.exists() for p in build.binaries().all()) and build.helm_path().exists():
         return
     capman = session.config.pluginmanager.getplugin("capturemanager")
     try:
         with capman.global_and_fixture_disabled():
             build.ensure_built()
+            build.ensure_helm()  # the chart tests' helm, also outside every timeout
     except Exception as exc:
         _build_error = exc
 

@@ -26,6 +26,7 @@ ETCD_VERSION = "v3.7.3"
 MODULES = Path(__file__).resolve().parent / "modules"
 
 KUBE_COMMANDS = ("kube-apiserver", "kube-controller-manager", "kubectl")
+HELM_VERSION = "v3.22.0"
 
 
 @dataclass(frozen=True)
@@ -148,7 +149,36 @@ def ensure_built() -> Binaries:
     return bins
 
 
+def helm_path() -> Path:
+    return cache_root() / "helm" / HELM_VERSION / "helm"
+
+
+def ensure_helm() -> Path:
+    """Return the Helm CLI the chart tests run, building it (under a lock) if missing.
+
+    Pinned in ``modules/helm``; the version string is stamped in as Helm's own
+    Makefile does, so ``helm version`` and the chart's kubeVersion checks see it.
+    """
+    out = helm_path()
+    if out.exists():
+        return out
+    if shutil.which("go") is None:
+        raise RuntimeError("the Go toolchain is needed to build helm: `go` is not on PATH")
+    out.parent.mkdir(parents=True, exist_ok=True)
+    with open(out.parent / ".build.lock", "w") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        if out.exists():
+            return out
+        _log(f"building helm {HELM_VERSION} into {out.parent}")
+        tmp = out.parent / ".partial-helm"
+        ldflags = f"-s -w -X helm.sh/helm/v3/internal/version.version={HELM_VERSION}"
+        _go_build(MODULES / "helm", tmp, ["helm.sh/helm/v3/cmd/helm"], ldflags)
+        os.replace(tmp, out)
+    return out
+
+
 if __name__ == "__main__":
     b = ensure_built()
     for p in b.all():
         print(p)
+    print(ensure_helm())

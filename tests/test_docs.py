@@ -1,0 +1,155 @@
+"""The reference docs say what the code does: every CRD field, reason and metric is
+documented, the format examples parse, and the floor rule's worked example is what
+`floorcast plan` computes."""
+
+from __future__ import annotations
+
+import json
+import re
+import subprocess
+import sys
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+
+from floorcast.controller import metrics, state
+from floorcast.core.series import parse_forecast, parse_history
+
+ROOT = Path(__file__).resolve().parents[1]
+DOCS = ROOT / "docs"
+CRD = ROOT / "crds" / "forecastscalingpolicies.floorcast.dev.yaml"
+FLOORCAST = Path(sys.executable).parent / "floorcast"
+
+
+def _fields(schema: dict[str, Any], prefix: str = "") -> dict[str, Any]:
+    """Dotted path → schema, arrays as ``name[]`` (the notation docs/policy.md uses)."""
+    out: dict[str, Any] = {}
+    for name, sub in (schema.get("properties") or {}).items():
+        path = f"{prefix}{name}"
+        out[path] = sub
+        if sub.get("type") == "array":
+            out.update(_fields(sub.get("items") or {}, f"{path}[]."))
+        else:
+            out.update(_fields(sub, f"{path}."))
+    return out
+
+
+def _spec_schema() -> dict[str, Any]:
+    crd = yaml.safe_load(CRD.read_text())
+    return crd["spec"]["versions"][0]["schema"]["openAPIV3Schema"]["properties"]["spec"]
+
+
+def _policy_rows() -> dict[str, str]:
+    rows = {}
+    for line in (DOCS / "policy.md").read_text().splitlines():
+        m = re.match(r"\| `([^`]+)` \|(.*)", line)
+        if m:
+            rows[m.group(1)] = m.group(2)
+    return rows
+
+
+def test_every_crd_spec_field_is_documented_with_its_default() -> None:
+    fields, rows = _fields(_spec_schema()), _policy_rows()
+    assert len(fields) >= 25  # the walk found the nested fields, not just the top level
+    missing = sorted(set(fields) - set(rows))
+    assert not missing, f"docs/policy.md lacks rows for {missing}"
+    for path, sub in fields.items():
+        if "default" in sub:
+            default = sub["default"]
+            shown = json.dumps(default) if isinstance(default, bool) else str(default)
+            cells = rows[path].split("|")
+            assert f"`{shown}`" in cells[1], f"{path}: default {shown} not in {cells[1]!r}"
+    extra = sorted(p for p in rows if "." in p and p.split(".")[0] in {"status"})
+    assert not extra or all(p.startswith("status.") for p in extra)
+
+
+def test_every_condition_reason_has_a_troubleshooting_row() -> None:
+    ops = (DOCS / "operations.md").read_text()
+    table = ops.split("## Troubleshooting by condition reason", 1)[1]
+    # The reason constants in controller/state.py: upper-case names, CamelCase values.
+    reasons = [v for k, v in vars(state).items() if k.isupper() and isinstance(v, str)
+               and re.fullmatch(r"(?:[A-Z][a-z]+){2,}", v)]  # fmt: skip
+    assert "ForecastStale" in reasons and "CapacityUnknown" in reasons
+    for reason in reasons:
+        assert f"| `{reason}` |" in table, reason
+
+
+def test_every_metric_is_documented() -> None:
+    ops = (DOCS / "operations.md").read_text()
+    names = [m._name for m in vars(metrics).values() if hasattr(m, "_name")]
+    assert len(names) >= 5
+    for name in names:
+        # prometheus_client drops the _total suffix from a Counter's _name.
+        assert re.search(rf"`{name}(_total)?[{{`]", ops), name
+
+
+def test_operations_has_the_cautions_and_the_no_image_build_note() -> None:
+    ops = " ".join((DOCS / "operations.md").read_text().split())
+    assert "change production availability and cost" in ops
+    assert "follow your organisation's change process" in ops
+    assert "not* built in this repository's CI" in ops
+
+
+def _blocks(lang: str) -> list[str]:
+    return re.findall(rf"```{lang}\n(.*?)```", (DOCS / "formats.md").read_text(), re.S)
+
+
+def test_format_examples_parse_with_the_real_readers() -> None:
+    csvs, jsons = _blocks("csv"), _blocks("json")
+    assert len(csvs) == 2 and len(jsons) == 1
+    history = parse_history(csvs[0], source="history example", fmt="csv")
+    assert len(history.values) == 4
+    band = parse_forecast(csvs[1], source="forecast CSV example", fmt="csv")
+    assert band.upper is not None and float(band.upper[0]) == 3.0
+    doc = parse_forecast(jsons[0], source="forecast JSON example", fmt="json")
+    assert doc.unit == "cores" and str(doc.generated) == "2027-01-08 12:00:00+00:00"
+
+
+@pytest.mark.parametrize(
+    ("text", "fmt", "says"),
+    [  # each a rule docs/formats.md states
+        ("timestamp,value\n2027-01-08T12:00:00,1\n2027-01-08T12:05:00,1\n", "csv", "offset"),
+        ("timestamp,value\n2027-01-08T12:00:00Z,-1\n2027-01-08T12:05:00Z,1\n", "csv", "negative"),
+        ('{"points": [{"t": "2027-01-08T12:00:00Z", "value": 1, "upperr": 2}]}', "json",
+         "upperr"),
+    ],
+)  # fmt: skip
+def test_format_rules_stated_in_the_docs_hold(text: str, fmt: str, says: str) -> None:
+    from floorcast.errors import InputError
+
+    with pytest.raises(InputError, match=says):
+        parse_history(text, source="x", fmt=fmt) if fmt == "csv" else parse_forecast(
+            text, source="x", fmt=fmt
+        )
+
+
+def test_worked_example_matches_floorcast_plan(tmp_path: Path) -> None:
+    points = []
+    for i in range(48):
+        h, m = divmod(i * 5, 60)
+        t = f"2027-01-08T{12 + h:02d}:{m:02d}:00Z"
+        points.append({"t": t, "value": 3.0 if t[11:16] in ("13:00", "13:05") else 0.8})
+    fc = tmp_path / "f.json"
+    fc.write_text(json.dumps({"unit": "cores", "step": "5m", "points": points,
+                              "generated": "2027-01-08T12:00:00Z"}))  # fmt: skip
+    pol = tmp_path / "p.yaml"
+    pol.write_text(yaml.safe_dump({
+        "apiVersion": "floorcast.dev/v1alpha1", "kind": "ForecastScalingPolicy",
+        "metadata": {"name": "web"},
+        "spec": {"targetRef": {"name": "web"},
+                 "forecast": {"configMapRef": {"name": "f", "key": "f.json"}},
+                 "capacity": {"perReplica": 0.5}, "leadTime": "10m", "holdTime": "30m",
+                 "headroom": 0.1}}))  # fmt: skip
+    res = subprocess.run(
+        [str(FLOORCAST), "plan", "-f", str(pol), "--forecast", str(fc), "--json",
+         "--at", "2027-01-08T12:40:00Z", "--baseline", "2", "--hpa-max", "10"],
+        capture_output=True, text=True, check=True,
+    )  # fmt: skip
+    changes = [(c["at"], c["from"], c["to"]) for c in json.loads(res.stdout)["changes"]]
+    # By hand (docs/policy.md): ceil(3.0 × 1.1 / 0.5) = 7 from 13:00 − 10m; the 13:05
+    # step ends 13:10, + 30m hold = 13:40; off-peak ceil(0.8 × 1.1 / 0.5) = 2.
+    assert changes == [("2027-01-08T12:50:00Z", 2, 7), ("2027-01-08T13:40:00Z", 7, 2)]
+    text = (DOCS / "policy.md").read_text()
+    assert "**12:50** to 7" in text and "**13:40**" in text

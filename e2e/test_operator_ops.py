@@ -88,10 +88,13 @@ def test_metrics_liveness_and_json_logs(env: Env) -> None:
     # A second raise (peak 8.5 needs 9) is a second patch: the counter increments.
     env.put_forecast(forecast_json(peak=8.5))
     env.wait(min_replicas(env, 9), "HPA minReplicas raised to 9")
+    # The counter moves when the patch is sent, the gauge after the reconcile ends:
+    # wait for both rather than race between them.
     fams = env.wait(lambda: (f := scrape(mport)) and
-                    sample(f, "floorcast_hpa_patches_total", **labels) == 2 and f,
-                    "patch counter at 2")  # fmt: skip
-    assert sample(fams, "floorcast_floor_replicas", **labels) == 9
+                    sample(f, "floorcast_hpa_patches_total", **labels) == 2 and
+                    sample(f, "floorcast_floor_replicas", **labels) == 9 and f,
+                    "patch counter at 2 and floor gauge at 9")  # fmt: skip
+    assert sample(fams, "floorcast_hpa_patches_total", **labels) == 2
 
     # kopf's liveness endpoint: 200 with a JSON body while the operator runs.
     with urllib.request.urlopen(f"http://127.0.0.1:{lport}/healthz", timeout=5) as r:

@@ -6,9 +6,9 @@ import json
 from pathlib import Path
 
 import pytest
+from cli_run import run
 
 from floorcast import scenario
-from floorcast.cli.main import main
 from floorcast.errors import InputError
 from floorcast.hpa_manifest import load_hpa_file
 
@@ -28,14 +28,6 @@ spec:
     scaleDown:
       stabilizationWindowSeconds: 120
 """
-
-
-def run(argv: list[str], capsys) -> tuple[int, str, str]:
-    with pytest.raises(SystemExit) as e:
-        main(argv)
-        raise SystemExit(0)
-    out = capsys.readouterr()
-    return int(e.value.code or 0), out.out, out.err
 
 
 @pytest.fixture(scope="module")

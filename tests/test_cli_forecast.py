@@ -8,18 +8,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from cli_run import run
 
 from floorcast import scenario
-from floorcast.cli.main import main
 from floorcast.core.series import parse_forecast
-
-
-def run(argv: list[str], capsys) -> tuple[int, str, str]:
-    with pytest.raises(SystemExit) as e:
-        main(argv)
-        raise SystemExit(0)
-    out = capsys.readouterr()
-    return int(e.value.code or 0), out.out, out.err
 
 
 @pytest.fixture(scope="module")

@@ -10,11 +10,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from cli_run import run
 from rich.console import Console
 
 from floorcast import scenario
 from floorcast.cli.demo import run_offline
-from floorcast.cli.main import main
 
 POLICY = """\
 apiVersion: floorcast.dev/v1alpha1
@@ -29,14 +29,6 @@ spec:
   headroom: 0
   maxReplicas: 8
 """
-
-
-def run(argv: list[str], capsys) -> tuple[int, str, str]:
-    with pytest.raises(SystemExit) as e:
-        main(argv)
-        raise SystemExit(0)
-    out = capsys.readouterr()
-    return int(e.value.code or 0), out.out, out.err
 
 
 def write_forecast(path: Path, values, *, step="5min", start="2026-12-01T00:00:00Z") -> Path:

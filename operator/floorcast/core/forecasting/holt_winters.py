@@ -5,7 +5,7 @@ Athanasopoulos, *Forecasting: Principles and Practice*, 2nd ed., §7.2–7.4): a
 or multiplicative seasonality, an additive trend that may be damped (Gardner &
 McKenzie, "Forecasting trends in time series", Management Science 31, 1985), and the
 same parameter names and constraints. Our fitted values equal statsmodels' for the
-same parameters and initial states (tests, to ~1e-12). The recursions run in
+same parameters and initial states (~1e-15 relative). The recursions run in
 ``holt_winters_filter``, the parameter search in ``holt_winters_fit``, the initial
 states in ``holt_winters_init``; this module is the public face.
 
@@ -32,6 +32,10 @@ Choices, and why:
   Gauss-Newton step, each kept only where it lowers the SSE. With two seasons the
   initial states are the heuristic ones (``holt_winters_init.double``), not refined:
   m + m2 of them would make the least-squares solve the slowest part of the fit.
+* The SSE minimised is statsmodels', under its constraints. On 14-day 5-minute
+  histories the fit ends within 0.4 % of statsmodels' SSE, often below; on short
+  ones (2-4 seasons, estimated states) the search can stop a few % above it, up to
+  ~20 % in synthetic multiplicative cases (the trend/damping/states coupling).
 * Multiplicative seasonality needs strictly positive history: such rows raise
   ``ForecastError`` naming them, rather than silently switching model (a caller that
   wants a fallback can retry those rows additively).

@@ -233,9 +233,11 @@ def run(
                 if out is not None:
                     out[t0 : t0 + ell] = yhat
                 err = np.subtract(yc, yhat, out=yhat)
-                if sv2 is None:
-                    sv *= 1.0 - gam
-                    sv += gam * yc / q
+                if sv2 is None:  # s += gamma (y / q - s), i.e. (1 - gamma) s + gamma y / q
+                    upd = np.divide(yc, q)
+                    upd -= sv
+                    upd *= gam
+                    sv += upd
                 else:
                     old1 = sv.copy()
                     sv *= 1.0 - gam

@@ -95,8 +95,10 @@ def _gain_grid(values: np.ndarray, spec: Spec) -> np.ndarray:
 
 
 # Coarse grid (coordinates, see ``params``). alpha ~ 0, 0.0016, 0.025, 0.14, 0.5,
-# 0.9; beta/alpha ~ 0.004, 0.28; phi ~ 0.86, 0.97; gamma/(1-alpha) ~ 0, 6e-4, 0.01,
-# 0.06, 0.28, 0.86 (0, 0.002, 0.1, 0.5 per gain when there are two seasons).
+# 0.9; beta/alpha ~ 0.004, 0.28; phi ~ 0.86, 0.97, 0.995; gamma/(1-alpha) ~ 0,
+# 6e-4, 0.01, 0.06, 0.28, 0.86 (0, 0.002, 0.1, 0.5 per gain with two seasons).
+# Exact zeros matter: a frozen level or seasonal can beat any small gain by orders
+# of magnitude on spiky data.
 _GRID_A = np.array([0.0, 0.15, 0.3, 0.4, 0.5, 0.62])
 _GRID_B = np.array([0.2, 0.45])
 _GRID_P = np.array([0.3, 0.85, 1.0])

@@ -12,7 +12,7 @@ $(BIN)/.installed: pyproject.toml
 	$(BIN)/python -m pip install --quiet -e '.[dev]'
 	touch $@
 
-## demo: run floorcast on the built-in demo shop
+## demo: floorcast live on a local control plane (built once) with the built-in demo shop
 demo: $(BIN)/.installed
 	$(BIN)/floorcast demo
 

@@ -1,0 +1,340 @@
+"""``floorcast demo`` live: the shop on a real control plane with the operator running.
+
+The demo's clock is real, but the shop's peaks are hours apart, so each forecast is
+replayed faster: its 5-minute points are re-stamped ``SPEED`` times closer together and
+shifted so that the service's biggest peak lands ``peak_at`` into the live phase.
+Lead and hold times shrink by the same factor, so the floor visibly rises ahead of the
+peak within a few minutes, and the real HPA controller scales the Deployment after it.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import tempfile
+import time
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+import yaml
+from rich.console import Console
+from rich.live import Live
+from rich.table import Table
+
+from floorcast import scenario
+from floorcast.cli.demo import BASELINE, HPA_MAX, policy_text
+from floorcast.core.series import Series, to_json_text
+from floorcast.durations import parse_duration
+from floorcast.errors import InputError
+
+#: Forecast time runs this much faster than the wall clock (5 min -> 5 s).
+SPEED = 60
+#: Live lead/hold (each 30 forecast-minutes at SPEED); the bundled ones are minutes.
+LIVE_LEAD, LIVE_HOLD = "30s", "30s"
+NAMESPACE = "shop"
+GROUP, VERSION, PLURAL = "floorcast.dev", "v1alpha1", "forecastscalingpolicies"
+ROOT = Path(__file__).resolve().parents[3]
+
+
+@dataclass
+class LiveResult:
+    """Samples of the live table (one dict per service and tick) and the files made."""
+
+    samples: list[dict[str, Any]] = field(default_factory=list)
+    reports: dict[str, Path] = field(default_factory=dict)
+    index: Path | None = None
+
+
+def replay_fast(fc: Series, *, now: pd.Timestamp, peak_at: pd.Timedelta) -> Series:
+    """The forecast re-stamped ``SPEED`` times faster, its biggest peak at now + peak_at."""
+    step = fc.step / SPEED
+    peak = int(fc.upper_or_value().argmax())
+    start = (now + peak_at - step * peak).floor("s")
+    return replace(fc, start=start, step=step, generated=now.floor("s"))
+
+
+def live_policy(service: str) -> dict[str, Any]:
+    """The bundled policy with lead/hold scaled to demo time and no dated events."""
+    doc = yaml.safe_load(policy_text(service))
+    doc["spec"]["leadTime"], doc["spec"]["holdTime"] = LIVE_LEAD, LIVE_HOLD
+    doc["spec"].pop("plannedEvents", None)
+    doc["metadata"]["namespace"] = NAMESPACE
+    return doc
+
+
+def _checkout() -> Path | None:
+    """The source checkout holding the e2e harness, if floorcast runs from one."""
+    return ROOT if (ROOT / "e2e" / "controlplane" / "runner.py").exists() else None
+
+
+def _step(console: Console, what: str, t0: float) -> None:
+    console.print(f"[green]✓[/green] {what} [dim]({time.monotonic() - t0:.1f}s)[/dim]")
+
+
+def _workload(name: str) -> tuple[dict[str, Any], dict[str, Any]]:
+    labels = {"app": name}
+    dep = {
+        "apiVersion": "apps/v1", "kind": "Deployment", "metadata": {"name": name},
+        "spec": {"replicas": BASELINE, "selector": {"matchLabels": labels},
+                 "template": {"metadata": {"labels": labels}, "spec": {"containers": [
+                     {"name": "app", "image": "registry.k8s.io/pause:3.10",
+                      "resources": {"requests": {"cpu": "1"}}}]}}},
+    }  # fmt: skip
+    hpa = {
+        "apiVersion": "autoscaling/v2", "kind": "HorizontalPodAutoscaler",
+        "metadata": {"name": name},
+        "spec": {"scaleTargetRef": {"apiVersion": "apps/v1", "kind": "Deployment", "name": name},
+                 "minReplicas": BASELINE, "maxReplicas": HPA_MAX,
+                 "metrics": [{"type": "Resource", "resource": {"name": "cpu", "target": {
+                     "type": "Utilization", "averageUtilization": 80}}}]},
+    }  # fmt: skip
+    return dep, hpa
+
+
+def _table(rows: list[dict[str, Any]], left: float) -> Table:
+    t = Table(
+        "service", "mode", "baseline", "floor", "proposed (DryRun)", "HPA minReplicas",
+        "Deployment replicas", title=f"shop — live ({left:.0f}s left, Ctrl-C stops)",
+    )  # fmt: skip
+    keys = ("service", "mode", "baseline", "floor", "proposed", "minReplicas", "replicas")
+    for r in rows:
+        t.add_row(*(str(r.get(k, "–")) for k in keys))
+    return t
+
+
+def _sample(api: Any, service: str, mode: str) -> dict[str, Any]:
+    from kubernetes import client as k8s
+
+    pol = k8s.CustomObjectsApi(api).get_namespaced_custom_object(
+        GROUP, VERSION, NAMESPACE, PLURAL, service
+    )
+    st = pol.get("status") or {}
+    hpa = k8s.AutoscalingV2Api(api).read_namespaced_horizontal_pod_autoscaler(service, NAMESPACE)
+    dep = k8s.AppsV1Api(api).read_namespaced_deployment(service, NAMESPACE)
+    return {
+        "t": time.time(), "service": service, "mode": mode,
+        "baseline": st.get("baseline", "–"), "floor": st.get("floor", "–"),
+        "proposed": st.get("proposedFloor", "–"), "minReplicas": hpa.spec.min_replicas,
+        "replicas": dep.spec.replicas,
+    }  # fmt: skip
+
+
+def _install(api: Any, console: Console) -> None:
+    """CRD and the operator's ClusterRole from the checkout, the shop's objects."""
+    from kubernetes import client as k8s
+    from kubernetes import utils
+    from kubernetes.client.rest import ApiException
+
+    t0 = time.monotonic()
+    for path in (ROOT / "crds", ROOT / "charts" / "floorcast" / "files" / "operator-rbac.yaml"):
+        for f in sorted(path.glob("*.yaml")) if path.is_dir() else [path]:
+            try:
+                utils.create_from_yaml(api, str(f))
+            except utils.FailToCreateError as e:
+                if any(x.status != 409 for x in e.api_exceptions):
+                    raise
+    ext = k8s.ApiextensionsV1Api(api)
+    crd = f"{PLURAL}.{GROUP}"
+    for _ in range(120):
+        conds = ext.read_custom_resource_definition(crd).status.conditions or []
+        if any(c.type == "Established" and c.status == "True" for c in conds):
+            break
+        time.sleep(0.5)
+    _step(console, "installed the CRD and the operator's RBAC", t0)
+    t0 = time.monotonic()
+    core = k8s.CoreV1Api(api)
+    try:
+        core.create_namespace({"metadata": {"name": NAMESPACE}})
+    except ApiException as e:
+        if e.status != 409:
+            raise
+    for svc in scenario.SERVICES:
+        dep, hpa = _workload(svc.name)
+        k8s.AppsV1Api(api).create_namespaced_deployment(NAMESPACE, dep)
+        k8s.AutoscalingV2Api(api).create_namespaced_horizontal_pod_autoscaler(NAMESPACE, hpa)
+    _step(console, f"namespace {NAMESPACE}: 3 Deployments and HPAs (minReplicas {BASELINE})", t0)
+
+
+def _operator_kubeconfig(cluster: Any, work: Path, api: Any) -> Path:
+    """A ServiceAccount token kubeconfig bound to the operator's ClusterRole."""
+    from kubernetes import client as k8s
+
+    from e2e.controlplane.tokens import service_account_credentials
+
+    creds = service_account_credentials(cluster, NAMESPACE, "floorcast-operator", work)
+    k8s.RbacAuthorizationV1Api(api).create_namespaced_role_binding(NAMESPACE, {
+        "metadata": {"name": "floorcast-operator"},
+        "roleRef": {"apiGroup": "rbac.authorization.k8s.io", "kind": "ClusterRole",
+                    "name": "floorcast-operator"},
+        "subjects": [{"kind": "ServiceAccount", "name": creds.name, "namespace": NAMESPACE}],
+    })  # fmt: skip
+    return creds.kubeconfig
+
+
+def _start_cluster(console: Console) -> Any:
+    root = _checkout()
+    if root is None:
+        raise InputError(
+            "floorcast demo: the local control plane comes with a source checkout "
+            "(make demo); pass --kubeconfig PATH for a throw-away cluster, or --offline"
+        )
+    if str(root) not in sys.path:
+        sys.path.insert(0, str(root))
+    from e2e.controlplane import build
+    from e2e.controlplane.runner import ControlPlane
+
+    t0 = time.monotonic()
+    if not all(p.exists() for p in build.binaries().all()):
+        console.print(
+            "[yellow]building etcd, kube-apiserver, kube-controller-manager and kubectl from "
+            f"Go modules into {build.bin_dir()}: a one-time 20-40 minutes on 2 cores[/yellow]"
+        )
+        build.ensure_built()
+        _step(console, "built the control plane", t0)
+    else:
+        _step(console, f"control plane binaries cached in {build.bin_dir()}", t0)
+    t0 = time.monotonic()
+    with console.status("starting etcd, kube-apiserver and kube-controller-manager"):
+        cp = ControlPlane().start()
+    _step(console, f"control plane up at {cp.server}", t0)
+    return cp
+
+
+def run_live(
+    out: Path,
+    console: Console,
+    *,
+    kubeconfig: Path | None = None,
+    duration: str = "4m",
+    plots: bool = True,
+) -> LiveResult:
+    """Offline forecasts, then the live phase on a cluster, then the reports; always
+    tears down what it started (also on Ctrl-C)."""
+    live_for = parse_duration(duration, field="--duration").total_seconds()
+    if live_for < 30:
+        raise InputError(f"--duration must be at least 30s, got {duration!r}")
+    from kubernetes import client as k8s
+    from kubernetes import config as k8s_config
+
+    out.mkdir(parents=True, exist_ok=True)
+    result = LiveResult()
+    cluster: Any = None
+    operator: subprocess.Popen | None = None
+    procs: list[subprocess.Popen] = []
+    api: Any = None
+    work = Path(tempfile.mkdtemp(prefix="floorcast-demo-"))
+    try:
+        if kubeconfig is None:
+            cluster = _start_cluster(console)
+            admin = cluster.kubeconfig
+        else:
+            admin = kubeconfig
+        api = k8s_config.new_client_from_config(str(admin))
+        _install(api, console)
+        t0 = time.monotonic()
+        from floorcast.cli.demo import forecast_shop
+
+        with console.status("forecasting each service from its two weeks of history"):
+            forecasts = forecast_shop()
+        now = pd.Timestamp.now(tz="UTC")
+        peak_at = pd.Timedelta(seconds=round(live_for * 0.55))
+        core = k8s.CoreV1Api(api)
+        for svc in scenario.SERVICES:
+            fc = replay_fast(forecasts[svc.name], now=now, peak_at=peak_at)
+            (out / f"{svc.name}-live-forecast.json").write_text(to_json_text(fc))
+            core.create_namespaced_config_map(NAMESPACE, {
+                "metadata": {"name": f"{svc.name}-forecast",
+                             "labels": {"floorcast.dev/forecast": "true"}},
+                "data": {"forecast.json": to_json_text(fc)},
+            })  # fmt: skip
+        _step(console, f"forecasts stored in ConfigMaps, replayed {SPEED}× fast, peaks "
+              f"{peak_at.total_seconds():.0f}s from now", t0)  # fmt: skip
+        modes = {}
+        custom = k8s.CustomObjectsApi(api)
+        for svc in scenario.SERVICES:
+            body = live_policy(svc.name)
+            modes[svc.name] = body["spec"]["mode"]
+            custom.create_namespaced_custom_object(GROUP, VERSION, NAMESPACE, PLURAL, body)
+        console.print(f"[green]✓[/green] policies: {json.dumps(modes)} (lead/hold "
+                      f"{LIVE_LEAD}/{LIVE_HOLD})")  # fmt: skip
+        op_cfg = _operator_kubeconfig(cluster, work, api) if cluster is not None else admin
+        log = (out / "operator.log").open("w")
+        cmd = [str(Path(sys.executable).parent / "floorcast"), "run", "--namespace", NAMESPACE,
+               "--interval", "2s", "--metrics-port", "0", "--liveness-port", "0",
+               "--kubeconfig", str(op_cfg)]  # fmt: skip
+        operator = subprocess.Popen(
+            cmd, stdout=log, stderr=subprocess.STDOUT, start_new_session=True
+        )
+        procs.append(operator)
+        console.print(f"[green]✓[/green] operator running (log: {out / 'operator.log'})")
+        # The back-test needs no cluster: run it beside the live phase, not after it.
+        bt_log = (out / "backtest.log").open("w")
+        backtest = subprocess.Popen(
+            [cmd[0], "demo", "--offline", "--output", str(out), *([] if plots else ["--no-plots"])],
+            stdout=bt_log, stderr=subprocess.STDOUT, start_new_session=True,
+        )  # fmt: skip
+        procs.append(backtest)
+        end = time.monotonic() + live_for
+        rows: list[dict[str, Any]] = []
+        with Live(_table(rows, live_for), console=console, refresh_per_second=2) as live:
+            while (left := end - time.monotonic()) > 0:
+                if operator.poll() is not None:
+                    raise RuntimeError(f"the operator exited; see {out / 'operator.log'}")
+                rows = [_sample(api, s.name, modes[s.name]) for s in scenario.SERVICES]
+                result.samples.extend(rows)
+                live.update(_table(rows, left))
+                time.sleep(2)
+        console.print()
+        (out / "live-samples.json").write_text(json.dumps(result.samples, indent=1))
+        with console.status("writing the back-test reports (two weeks replayed per service)"):
+            rc = backtest.wait()
+        if rc != 0:
+            raise RuntimeError(f"the back-test failed; see {out / 'backtest.log'}")
+        result.reports = {s.name: out / f"{s.name}-backtest.html" for s in scenario.SERVICES}
+        result.index = out / "index.html"
+        console.print(f"Back-test reports: [bold]{result.index.resolve()}[/bold]")
+    except KeyboardInterrupt:
+        console.print("[yellow]interrupted: tearing down[/yellow]")
+    finally:
+        _teardown(console, api, procs, cluster)
+    return result
+
+
+def _teardown(console: Console, api: Any, procs: list[subprocess.Popen], cluster: Any) -> None:
+    t0 = time.monotonic()
+    if cluster is None and api is not None:  # an existing cluster: remove what we made
+        from kubernetes import client as k8s
+
+        try:
+            custom = k8s.CustomObjectsApi(api)
+            for s in scenario.SERVICES:
+                custom.delete_namespaced_custom_object(GROUP, VERSION, NAMESPACE, PLURAL, s.name)
+            time.sleep(5)  # the running operator restores baselines and drops finalizers
+        except Exception as e:  # best effort: report and go on tearing down
+            console.print(f"[yellow]could not delete the policies: {e}[/yellow]")
+    for p in procs:  # the operator and the back-test, each in its own process group
+        if p.poll() is None:
+            os.killpg(p.pid, signal.SIGTERM)
+    for p in procs:
+        try:
+            p.wait(10)
+        except subprocess.TimeoutExpired:
+            os.killpg(p.pid, signal.SIGKILL)
+            p.wait(5)
+    if api is not None:
+        if cluster is None:
+            from kubernetes import client as k8s
+
+            try:
+                k8s.CoreV1Api(api).delete_namespace(NAMESPACE)
+            except Exception as e:
+                console.print(f"[yellow]could not delete namespace {NAMESPACE}: {e}[/yellow]")
+        api.close()
+    if cluster is not None:
+        cluster.stop()
+    _step(console, "torn down", t0)

@@ -45,6 +45,17 @@ helm.sh/chart: {{ printf "%s-%s" .Chart.Name .Chart.Version }}
 {{- required "files/operator-rbac.yaml has no rules" $rbac.rules | toYaml -}}
 {{- end -}}
 
+{{/* The Lease rules for leader election, read from files/leader-election-rbac.yaml. */}}
+{{- define "floorcast.leaderElectionRules" -}}
+{{- $rbac := .Files.Get "files/leader-election-rbac.yaml" | fromYaml -}}
+{{- required "files/leader-election-rbac.yaml has no rules" $rbac.rules | toYaml -}}
+{{- end -}}
+
+{{/* The Lease's name: the release's full name unless set. */}}
+{{- define "floorcast.leaseName" -}}
+{{- default (include "floorcast.fullname" .) .Values.leaderElection.leaseName -}}
+{{- end -}}
+
 {{/* Pod and container hardening shared by the operator and the forecast job. */}}
 {{- define "floorcast.podSecurityContext" -}}
 runAsNonRoot: true

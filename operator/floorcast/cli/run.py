@@ -52,19 +52,45 @@ def _interval(value: str) -> float:
 )
 @click.option("--kubeconfig", type=click.Path(dir_okay=False), default=None,
               help="Kubeconfig to use (default: in-cluster, then ~/.kube/config).")  # fmt: skip
+@click.option(
+    "--leader-elect",
+    "lease_name",
+    default=None,
+    metavar="LEASE",
+    help="Run several replicas: only the holder of this coordination.k8s.io Lease "
+    "acts, the others wait on standby. Default: standalone (one replica).",
+)
+@click.option(
+    "--leader-elect-namespace",
+    "lease_namespace",
+    default=None,
+    metavar="NS",
+    help="The Lease's namespace (default: $POD_NAMESPACE, else the first "
+    "--namespace, else default).",
+)
+@click.option(
+    "--identity",
+    default=None,
+    metavar="ID",
+    help="This replica's name in the Lease (default: hostname-pid).",
+)
 def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interval: str,
         hosts: tuple[str, ...], metrics_port: int, liveness_port: int, log_format: str,
-        kubeconfig: str | None) -> None:  # fmt: skip
+        kubeconfig: str | None, lease_name: str | None, lease_namespace: str | None,
+        identity: str | None) -> None:  # fmt: skip
     from floorcast.controller.app import run as run_operator
     from floorcast.controller.settings import Settings
 
     if all_namespaces and namespaces:
         raise click.UsageError("--all-namespaces and --namespace exclude each other")
+    if (lease_namespace or identity) and not lease_name:
+        raise click.UsageError("--leader-elect-namespace and --identity need --leader-elect")
     seconds = _interval(interval)
     if seconds < 1:
         raise click.BadParameter("must be at least 1s", param_hint="--interval")
     run_operator(Settings(
         namespaces=tuple(namespaces), interval_seconds=seconds, allowed_url_hosts=tuple(hosts),
         dry_run=dry_run, metrics_port=metrics_port or None, liveness_port=liveness_port or None,
-        log_format=log_format, kubeconfig=kubeconfig,
+        log_format=log_format, kubeconfig=kubeconfig, lease_name=lease_name,
+        lease_namespace=lease_namespace, identity=identity,
     ))  # fmt: skip

@@ -4,20 +4,31 @@ kopf's settings that matter here: no kopf-posted Events (we post our own, and an
 operator must make no writes), progress kept in annotations (the status schema would
 prune kopf's own status fields), short watch timeouts so a restarted API server is
 noticed quickly, and standalone mode (see handlers.py).
+
+With ``--leader-elect LEASE`` several replicas may run: each waits on standby (serving
+/healthz so its liveness probe passes) until it holds the Lease (controller/leader.py),
+and only then starts kopf. A replica that cannot renew exits at once — the pod restarts
+as a standby — so two replicas never act together.
 """
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import os
+import socket
+import threading
+from collections.abc import Iterator
+from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from typing import Any
 
 import kopf
 from kubernetes import client as k8s
 from kubernetes import config as k8s_config
 
-from floorcast.controller import metrics
+from floorcast.controller import memory, metrics
 from floorcast.controller.handlers import register
+from floorcast.controller.leader import Elector, LeaseConfig, keep_leading, wait_for_leadership
 from floorcast.controller.reconcile import Runtime
 from floorcast.controller.settings import Settings
 
@@ -38,9 +49,70 @@ def api_client(settings: Settings) -> k8s.ApiClient:
     return k8s.ApiClient(cfg)
 
 
+class _Healthz(BaseHTTPRequestHandler):
+    def do_GET(self) -> None:  # the stdlib's name
+        ok = self.path.split("?")[0] == "/healthz"
+        self.send_response(200 if ok else 404)
+        self.end_headers()
+        self.wfile.write(b"standby\n" if ok else b"")
+
+    def log_message(self, *_: Any) -> None:  # probes every 20 s: no log line each
+        pass
+
+
+@contextlib.contextmanager
+def _standby_liveness(port: int | None) -> Iterator[None]:
+    """kopf's liveness endpoint only exists once kopf runs; a standby serves its own."""
+    if not port:
+        yield
+        return
+    server = ThreadingHTTPServer(("0.0.0.0", port), _Healthz)
+    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    thread.start()
+    try:
+        yield
+    finally:
+        server.shutdown()
+        server.server_close()
+
+
+def _lease_config(settings: Settings) -> LeaseConfig:
+    ns = (settings.lease_namespace or os.environ.get("POD_NAMESPACE")
+          or (settings.namespaces[0] if settings.namespaces else "default"))  # fmt: skip
+    identity = settings.identity or f"{socket.gethostname()}-{os.getpid()}"
+    assert settings.lease_name
+    return LeaseConfig(name=settings.lease_name, namespace=ns, identity=identity)
+
+
+def _acquire(api: k8s.ApiClient, settings: Settings) -> tuple[Elector, threading.Event]:
+    """Block on standby until leader; then renew in the background (exit if lost)."""
+    e = Elector(api, _lease_config(settings))
+    where = f"{e.cfg.namespace}/{e.cfg.name}"
+
+    def standby(holder: str | None) -> None:
+        log.info("standby: Lease %s is held by %r; not acting (identity %s)", where, holder,
+                 e.cfg.identity)  # fmt: skip
+
+    def lost() -> None:
+        log.error("leader election: lost Lease %s (holder %r); exiting so only one replica "
+                  "acts", where, e.holder)  # fmt: skip
+        logging.shutdown()
+        os._exit(1)
+
+    metrics.LEADER.set(0)
+    with _standby_liveness(settings.liveness_port):
+        wait_for_leadership(e, standby)
+    log.info("leader election: acting, Lease %s held by %s", where, e.cfg.identity)
+    stop = threading.Event()
+    threading.Thread(target=keep_leading, args=(e, stop, lost), daemon=True,
+                     name="lease-renew").start()  # fmt: skip
+    return e, stop
+
+
 def run(settings: Settings) -> None:
     if settings.kubeconfig:
         os.environ["KUBECONFIG"] = settings.kubeconfig  # kopf's own login reads it
+    trimming = memory.start_trimming()  # see memory.py: steady RSS 326 -> ~180 MiB
     kopf.configure(
         verbose=False,
         log_format=kopf.LogFormat.JSON if settings.log_format == "json" else kopf.LogFormat.FULL,
@@ -77,16 +149,25 @@ def run(settings: Settings) -> None:
 
     if settings.metrics_port:
         metrics.serve(settings.metrics_port)
+    leading = _acquire(rt.api, settings) if settings.lease_name else None
+    metrics.LEADER.set(1)
     liveness = (
         f"http://0.0.0.0:{settings.liveness_port}/healthz" if settings.liveness_port else None
     )
     where = "all namespaces" if settings.all_namespaces else ", ".join(settings.namespaces)
     log.info("floorcast operator starting: %s, interval %gs, dry-run %s", where,
              settings.interval_seconds, settings.dry_run)  # fmt: skip
-    kopf.run(
-        registry=registry,
-        standalone=True,
-        clusterwide=settings.all_namespaces,
-        namespaces=list(settings.namespaces),
-        liveness_endpoint=liveness,
-    )
+    try:
+        kopf.run(
+            registry=registry,
+            standalone=True,
+            clusterwide=settings.all_namespaces,
+            namespaces=list(settings.namespaces),
+            liveness_endpoint=liveness,
+        )
+    finally:
+        if trimming is not None:
+            trimming.set()
+        if leading is not None:
+            leading[1].set()
+            leading[0].release()

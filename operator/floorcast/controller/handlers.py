@@ -11,8 +11,8 @@ Triggers (level-triggered; every one runs the same full reconcile):
 Two in-memory indexes (filled before any handler runs; kopf guarantees that) also
 give the conflict check — which policies target one HPA — without API calls.
 
-The operator runs standalone (no kopf peering): run one replica. Peering needs kopf's
-peering CRDs installed; that and several replicas are not supported yet.
+kopf itself runs standalone (no kopf peering). Several replicas are safe with
+``--leader-elect`` (controller/leader.py): only the Lease holder starts kopf at all.
 """
 
 from __future__ import annotations

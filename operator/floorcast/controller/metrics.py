@@ -38,3 +38,6 @@ def forget(namespace: str, name: str) -> None:
 
 def serve(port: int) -> None:
     start_http_server(port)
+
+
+LEADER = Gauge("floorcast_leader", "1 while this replica acts (holds the Lease), 0 on standby")

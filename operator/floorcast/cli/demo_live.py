@@ -260,8 +260,9 @@ def run_live(
             body = live_policy(svc.name)
             modes[svc.name] = body["spec"]["mode"]
             custom.create_namespaced_custom_object(GROUP, VERSION, NAMESPACE, PLURAL, body)
-        console.print(f"[green]✓[/green] policies: {json.dumps(modes)} (lead/hold "
-                      f"{LIVE_LEAD}/{LIVE_HOLD})")  # fmt: skip
+        listed = ", ".join(f"{name} {mode}" for name, mode in modes.items())
+        console.print(f"[green]✓[/green] policies applied: {listed} (leadTime "
+                      f"{LIVE_LEAD}, holdTime {LIVE_HOLD})")  # fmt: skip
         op_cfg = _operator_kubeconfig(cluster, work, api) if cluster is not None else admin
         log = (out / "operator.log").open("w")
         cmd = [str(Path(sys.executable).parent / "floorcast"), "run", "--namespace", NAMESPACE,

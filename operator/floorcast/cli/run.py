@@ -74,10 +74,18 @@ def _interval(value: str) -> float:
     metavar="ID",
     help="This replica's name in the Lease (default: hostname-pid).",
 )
+@click.option(
+    "--max-api-connections",
+    type=click.IntRange(min=1),
+    default=16,
+    show_default=True,
+    help="kopf's connections to the API server besides one per watch stream; bounds "
+    "memory during the start-up flood.",
+)
 def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interval: str,
         hosts: tuple[str, ...], metrics_port: int, liveness_port: int, log_format: str,
         kubeconfig: str | None, lease_name: str | None, lease_namespace: str | None,
-        identity: str | None) -> None:  # fmt: skip
+        identity: str | None, max_api_connections: int) -> None:  # fmt: skip
     from floorcast.controller.app import run as run_operator
     from floorcast.controller.settings import Settings
 
@@ -93,4 +101,5 @@ def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interv
         dry_run=dry_run, metrics_port=metrics_port or None, liveness_port=liveness_port or None,
         log_format=log_format, kubeconfig=kubeconfig, lease_name=lease_name,
         lease_namespace=lease_namespace, identity=identity,
+        max_api_connections=max_api_connections,
     ))  # fmt: skip

@@ -27,6 +27,7 @@ from kubernetes import client as k8s
 from kubernetes import config as k8s_config
 
 from floorcast.controller import memory, metrics
+from floorcast.controller.connections import bounded_session, connection_limit
 from floorcast.controller.handlers import register
 from floorcast.controller.leader import Elector, LeaseConfig, keep_leading, wait_for_leadership
 from floorcast.controller.reconcile import Runtime
@@ -123,10 +124,12 @@ def run(settings: Settings) -> None:
     register(registry, rt)
 
     @kopf.on.login(registry=registry)
-    def login(**kwargs: Any) -> kopf.ConnectionInfo | None:
+    async def login(**kwargs: Any) -> kopf.AiohttpSession | None:
         if settings.kubeconfig:
-            return kopf.login_with_kubeconfig(**kwargs)
-        return kopf.login_with_service_account(**kwargs) or kopf.login_with_kubeconfig(**kwargs)
+            info = kopf.login_with_kubeconfig(**kwargs)
+        else:
+            info = kopf.login_with_service_account(**kwargs) or kopf.login_with_kubeconfig(**kwargs)
+        return bounded_session(info, connection_limit(settings)) if info else None
 
     @kopf.on.startup(registry=registry)
     def configure(settings: kopf.OperatorSettings, **_: Any) -> None:

@@ -16,8 +16,10 @@ up to 32 MiB, from memory) and a trim every few seconds, which costs a few ms.
 Elsewhere than glibc (musl, macOS) all of this is a no-op.
 
 Measured after the change (same benchmark): steady RSS 177-184 MiB, but the start-up
-peak (VmHWM) stays ~320 MiB with a trim every 5 s or every 1 s alike: that peak is
-memory in use during the flood, not freed memory kept, and trimming cannot lower it.
+peak (VmHWM) stayed ~320 MiB with a trim every 5 s or every 1 s alike: that peak was
+memory in use during the flood, not freed memory kept. It was native memory of
+hundreds of TLS connections opened at once; controller/connections.py caps them, and
+the peak is now ~175 MiB.
 """
 
 from __future__ import annotations

@@ -26,6 +26,8 @@ class Settings:
     url_timeout_seconds: float = 5.0
     max_forecast_bytes: int = MAX_FORECAST_BYTES
     api_timeout_seconds: float = 10.0
+    #: kopf's API connections besides its watch streams (controller/connections.py).
+    max_api_connections: int = 16
     #: Leader election: the Lease's name (None: standalone, for a single replica), its
     #: namespace and this replica's identity (unique per process).
     lease_name: str | None = None

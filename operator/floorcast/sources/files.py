@@ -23,8 +23,11 @@ def read_text(path: str | os.PathLike[str], *, max_bytes: int | None = None) -> 
     p, name = Path(path), str(path)
     try:
         if max_bytes is not None and (size := p.stat().st_size) > max_bytes:
-            raise InputError(f"file is {size} bytes, over the limit of {max_bytes} bytes "
-                             f"({max_bytes / 2**20:g} MiB)", source=name)
+            raise InputError(
+                f"file is {size} bytes, over the limit of {max_bytes} bytes "
+                f"({max_bytes / 2**20:g} MiB)",
+                source=name,
+            )
         data = p.read_bytes()
     except FileNotFoundError:
         raise InputError("file not found", source=name) from None
@@ -58,8 +61,10 @@ def write_forecast(series: Series, path: str | os.PathLike[str]) -> None:
     p, name = Path(path), str(path)
     writer = _WRITERS.get(p.suffix.lower())
     if writer is None:
-        raise InputError(f"unknown output format {p.suffix or '(no suffix)'!r}; "
-                         "use a .csv or .json file name", source=name)
+        raise InputError(
+            f"unknown output format {p.suffix or '(no suffix)'!r}; use a .csv or .json file name",
+            source=name,
+        )
     text = writer(series)
     try:
         fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=p.parent)

@@ -7,7 +7,9 @@ needs ceil(6.5) = 7.
 
 from __future__ import annotations
 
+import threading
 import time
+from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 
 import pandas as pd
 import pytest
@@ -138,6 +140,46 @@ def test_url_outside_allow_list_is_refused(env: Env) -> None:
                  and env.condition("p"), "UrlNotAllowed")  # fmt: skip
     assert "10.0.0.1" in c["message"]
     assert env.hpa().spec.min_replicas == BASELINE
+
+
+def test_url_forecast_from_an_allowed_host_raises_and_is_fetched_conditionally(env: Env) -> None:
+    """A real HTTP server on 127.0.0.1 (where the operator process runs) serves the
+    forecast with an ETag; the operator raises the floor, and its timer's re-fetches
+    are conditional GETs answered 304 (RFC 9110 section 13.1.2)."""
+    body, seen = forecast_json().encode(), []
+
+    class Handler(BaseHTTPRequestHandler):
+        def do_GET(self) -> None:  # the stdlib's name
+            seen.append(self.headers.get("If-None-Match"))
+            if self.headers.get("If-None-Match") == '"f1"':
+                self.send_response(304)
+                self.end_headers()
+                return
+            self.send_response(200)
+            self.send_header("ETag", '"f1"')
+            self.send_header("Content-Length", str(len(body)))
+            self.end_headers()
+            self.wfile.write(body)
+
+        def log_message(self, *_: object) -> None:
+            pass
+
+    httpd = ThreadingHTTPServer(("127.0.0.1", 0), Handler)
+    threading.Thread(target=httpd.serve_forever, daemon=True).start()
+    try:
+        env.create_workload()
+        env.start_operator("--allow-url-host", "127.0.0.1")
+        url = f"http://127.0.0.1:{httpd.server_address[1]}/forecasts/web.json?token=s3cret"
+        env.create_policy(policy_body("p", forecast={"url": url}))
+        env.wait(min_replicas(env, 7), "HPA minReplicas raised to 7 from the URL forecast")
+        env.wait(lambda: seen.count('"f1"') >= 2, "two conditional re-fetches on the 2 s timer")
+        assert seen[0] is None  # the first fetch had nothing to validate against
+        assert env.condition("p")["status"] == "True"
+        assert env.hpa().spec.min_replicas == 7  # the 304s kept the same forecast
+        assert "s3cret" not in str(env.policy("p").get("status"))
+    finally:
+        httpd.shutdown()
+        httpd.server_close()
 
 
 def test_forecast_configmap_change_acts_promptly_without_waiting_for_the_timer(env: Env) -> None:

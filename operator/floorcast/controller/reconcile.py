@@ -32,7 +32,7 @@ from floorcast.kube.hpa import Conflict, patch_hpa, read_hpa
 from floorcast.kube.workload import read_pod_spec
 from floorcast.policy import Policy, PolicyError, parse_policy
 from floorcast.sources.configmap import ParsedCache, forecast_from_configmap
-from floorcast.sources.http import forecast_from_url
+from floorcast.sources.http import UrlCache, forecast_from_url
 
 log = logging.getLogger("floorcast.operator")
 CONFLICT_RETRIES = 3
@@ -62,6 +62,7 @@ class Runtime:
     settings: Settings
     api: k8s.ApiClient
     cache: ParsedCache = field(default_factory=ParsedCache)
+    url_cache: UrlCache = field(default_factory=UrlCache)
     _locks: dict[tuple[str, str], threading.Lock] = field(default_factory=dict)
     _guard: threading.Lock = field(default_factory=threading.Lock)
     #: The status we last wrote per policy. The status is ours alone, and kopf's body can
@@ -91,7 +92,7 @@ def _policy(body: Mapping[str, Any], source: str) -> tuple[Policy | None, str | 
 def _forecast(rt: Runtime, p: Policy, configmaps: ConfigMapLookup | None) -> ForecastState:
     src, s = p.spec.forecast, rt.settings
     if src.url is not None:
-        return forecast_from_url(src.url, s)
+        return forecast_from_url(src.url, s, rt.url_cache)
     assert src.config_map_ref is not None
     ref = src.config_map_ref
     hit = configmaps(p.namespace, ref.name) if configmaps else None

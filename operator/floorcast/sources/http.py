@@ -4,12 +4,23 @@ The operator runs with cluster credentials inside the cluster network; a policy 
 who could make it fetch any URL could use it to probe internal services. So the host
 must be on the operator-level allow-list, redirects are never followed (a redirect
 could leave the list), the body is capped and every request has a timeout.
+
+Every policy is reconciled on the timer, so an unchanged forecast would be downloaded
+and parsed again every 30 s per policy. The last good answer per URL is kept with its
+validators: the next request is conditional (``If-None-Match`` / ``If-Modified-Since``,
+RFC 9110 section 13.1) and a ``304 Not Modified`` reuses the parsed forecast; a server
+that sends no validators still saves the parse when the body's digest is unchanged.
+Failures are never cached: the next reconcile tries again.
 """
 
 from __future__ import annotations
 
+import hashlib
+import threading
 import urllib.error
 import urllib.request
+from collections import OrderedDict
+from dataclasses import dataclass
 from urllib.parse import urlsplit
 
 from floorcast.controller.settings import Settings
@@ -31,13 +42,44 @@ class _NoRedirect(urllib.request.HTTPRedirectHandler):
 _OPENER = urllib.request.build_opener(_NoRedirect)
 
 
+@dataclass(frozen=True)
+class _Fetched:
+    etag: str | None
+    last_modified: str | None
+    digest: str
+    state: ForecastState
+
+
+class UrlCache:
+    """The last good forecast per URL (LRU); shared by the reconcile threads."""
+
+    def __init__(self, size: int = 2048) -> None:
+        self._size = size
+        self._items: OrderedDict[str, _Fetched] = OrderedDict()
+        self._lock = threading.Lock()
+
+    def get(self, url: str) -> _Fetched | None:
+        with self._lock:
+            hit = self._items.get(url)
+            if hit is not None:
+                self._items.move_to_end(url)
+            return hit
+
+    def put(self, url: str, value: _Fetched) -> None:
+        with self._lock:
+            self._items[url] = value
+            self._items.move_to_end(url)
+            while len(self._items) > self._size:
+                self._items.popitem(last=False)
+
+
 def redact(url: str) -> str:
     """Scheme, host and path only: a query string may carry a token."""
     p = urlsplit(url)
     return f"{p.scheme}://{p.hostname}{':' + str(p.port) if p.port else ''}{p.path}"
 
 
-def forecast_from_url(url: str, settings: Settings) -> ForecastState:
+def forecast_from_url(url: str, settings: Settings, cache: UrlCache | None = None) -> ForecastState:
     """Fetch and parse; every failure is a ForecastState with a condition reason."""
     try:
         host = urlsplit(url).hostname
@@ -49,16 +91,36 @@ def forecast_from_url(url: str, settings: Settings) -> ForecastState:
                              message=f"host {host!r} of {shown} is not in the operator's "
                                      "--allow-url-host list; not fetched")  # fmt: skip
     cap = settings.max_forecast_bytes
+    known = cache.get(url) if cache is not None else None
+    request = urllib.request.Request(url)
+    if known is not None and known.etag:
+        request.add_header("If-None-Match", known.etag)
+    if known is not None and known.last_modified:
+        request.add_header("If-Modified-Since", known.last_modified)
     try:
-        with _OPENER.open(url, timeout=settings.url_timeout_seconds) as resp:
+        with _OPENER.open(request, timeout=settings.url_timeout_seconds) as resp:
             body = resp.read(cap + 1)
+            etag, modified = resp.headers.get("ETag"), resp.headers.get("Last-Modified")
     except urllib.error.HTTPError as e:
+        if e.code == 304 and known is not None:
+            return known.state
         return ForecastState(reason=FORECAST_MISSING, message=f"{shown}: HTTP {e.code}")
     except (urllib.error.URLError, TimeoutError, OSError) as e:
         why = getattr(e, "reason", None) or e
         return ForecastState(reason=FORECAST_MISSING, message=f"{shown}: {why}")
     if len(body) > cap:
         return ForecastState(reason=FORECAST_INVALID, message=f"{shown}: over {cap} bytes")
+    digest = hashlib.sha256(body).hexdigest()
+    if known is not None and known.digest == digest:
+        state = known.state
+    else:
+        state = _parse(body, shown, cap)
+    if cache is not None and state.series is not None:
+        cache.put(url, _Fetched(etag, modified, digest, state))
+    return state
+
+
+def _parse(body: bytes, shown: str, cap: int) -> ForecastState:
     try:
         text = body.decode("utf-8-sig")
         return ForecastState(series=parse_forecast(text, source=shown, max_bytes=cap))

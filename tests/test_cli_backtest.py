@@ -5,6 +5,8 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
 from cli_run import run
 
@@ -93,3 +95,37 @@ def test_hpa_manifest_defaults_and_errors(tmp_path):
     p.write_text(HPA.replace("stabilizationWindowSeconds: 120", "stabilizationWindowSeconds: 7200"))
     with pytest.raises(InputError, match="between 0 and 3600"):
         load_hpa_file(p)
+
+
+def test_a_gap_across_a_forecast_origin_is_not_filled_from_the_future(
+    history, tmp_path, capsys, monkeypatch
+):
+    """Two files equal up to the end of a 25-minute hole, different after it: what the
+    replay is given must be identical before the hole ends, or a forecast made inside
+    it has seen a sample recorded after its origin."""
+    from floorcast.cli import backtest as cli_bt
+
+    lines = history.read_text().splitlines()
+    header, rows = lines[0], lines[1:]
+    cut = len(rows) // 2
+    gap = rows[:cut] + rows[cut + 4 :]  # 5-minute steps: 4 missing samples
+    other = rows[:cut] + [f"{r.split(',')[0]},{float(r.split(',')[1]) * 3:g}"
+                          for r in rows[cut + 4 :]]  # fmt: skip
+    seen = []
+
+    def capture(spec, hist, *args, **kwargs):  # the replay itself is tested elsewhere
+        seen.append(hist)
+        raise SystemExit(0)
+
+    monkeypatch.setattr(cli_bt.replay, "run", capture)
+    for i, body in enumerate((gap, other)):
+        p = tmp_path / f"h{i}.csv"
+        p.write_text("\n".join([header, *body]) + "\n")
+        run(["backtest", "-f", POLICY, "--history", str(p), "--json"], capsys)
+    a, b = seen
+    t = lambda row: pd.Timestamp(row.split(",")[0])  # noqa: E731
+    before = a.times < t(rows[cut + 4])
+    hole = (a.times > t(rows[cut - 1])) & before
+    assert hole.sum() == 4  # the hole was filled onto the grid...
+    np.testing.assert_array_equal(a.values[before], b.values[before])  # ...from the past only
+    assert (a.values[hole] == float(rows[cut - 1].split(",")[1])).all()

@@ -27,6 +27,8 @@ from floorcast.policy import load_policy_file
 from floorcast.sources.files import read_history
 from floorcast.timefmt import iso, parse_rfc3339
 
+#: How `backtest` fills short gaps in recorded history (see run()).
+REPLAY_GAP_FILL = "ffill"
 HELP = "Replay history through the reactive HPA, with and without floors."
 KEYS = ("under_capacity_minutes", "over_target_minutes", "replica_hours",
         "peak_utilization", "scale_events")  # fmt: skip
@@ -139,7 +141,10 @@ def backtest(policy_file: Path, history: Path, hpa_file: Path | None, baseline: 
         **kw,
     )
     grid = parse_sweep(sweep_items, spec.lead_time, spec.headroom) if sweep_items else []
-    hist = read_history(history)
+    # Forward-fill short gaps, never interpolate: a straight line across a gap that
+    # straddles a forecast origin would read a sample recorded after that origin (a
+    # look-ahead); the last value seen is all a live forecaster would have had.
+    hist = read_history(history, gap_fill=REPLAY_GAP_FILL)
     err = Console(stderr=True)
     if sys.stderr.isatty() and not as_json:
         # One bar over replay's phases (forecast, plan, simulate, measure): the work

@@ -48,6 +48,8 @@ class LiveResult:
     samples: list[dict[str, Any]] = field(default_factory=list)
     reports: dict[str, Path] = field(default_factory=dict)
     index: Path | None = None
+    #: The demo created the namespace, so tearing down may delete it (never otherwise).
+    created_namespace: bool = False
 
 
 def replay_fast(fc: Series, *, now: pd.Timestamp, peak_at: pd.Timedelta) -> Series:
@@ -124,8 +126,11 @@ def _sample(api: Any, service: str, mode: str) -> dict[str, Any]:
     }  # fmt: skip
 
 
-def _install(api: Any, console: Console) -> None:
-    """CRD and the operator's ClusterRole from the checkout, the shop's objects."""
+def _install(api: Any, console: Console, result: LiveResult) -> None:
+    """CRD and the operator's ClusterRole from the checkout, the shop's objects.
+
+    The namespace must not exist yet: the demo deletes it when it is done, and on a
+    cluster given with --kubeconfig an existing one may hold somebody's work."""
     from kubernetes import client as k8s
     from kubernetes import utils
     from kubernetes.client.rest import ApiException
@@ -153,6 +158,12 @@ def _install(api: Any, console: Console) -> None:
     except ApiException as e:
         if e.status != 409:
             raise
+        raise InputError(
+            f"namespace {NAMESPACE!r} already exists in that cluster; the demo creates it "
+            "and deletes it afterwards, so it leaves an existing one alone. Delete it or "
+            "use a throw-away cluster"
+        ) from None
+    result.created_namespace = True
     for svc in scenario.SERVICES:
         dep, hpa = _workload(svc.name)
         k8s.AppsV1Api(api).create_namespaced_deployment(NAMESPACE, dep)
@@ -235,7 +246,7 @@ def run_live(
         else:
             admin = kubeconfig
         api = k8s_config.new_client_from_config(str(admin))
-        _install(api, console)
+        _install(api, console, result)
         t0 = time.monotonic()
         from floorcast.cli.demo import forecast_shop
 
@@ -302,22 +313,15 @@ def run_live(
     except KeyboardInterrupt:
         console.print("[yellow]interrupted: tearing down[/yellow]")
     finally:
-        _teardown(console, api, procs, cluster)
+        _teardown(console, api, procs, cluster, result.created_namespace)
     return result
 
 
-def _teardown(console: Console, api: Any, procs: list[subprocess.Popen], cluster: Any) -> None:
+def _teardown(console: Console, api: Any, procs: list[subprocess.Popen], cluster: Any,
+              created_namespace: bool) -> None:  # fmt: skip
     t0 = time.monotonic()
-    if cluster is None and api is not None:  # an existing cluster: remove what we made
-        from kubernetes import client as k8s
-
-        try:
-            custom = k8s.CustomObjectsApi(api)
-            for s in scenario.SERVICES:
-                custom.delete_namespaced_custom_object(GROUP, VERSION, NAMESPACE, PLURAL, s.name)
-            time.sleep(5)  # the running operator restores baselines and drops finalizers
-        except Exception as e:  # best effort: report and go on tearing down
-            console.print(f"[yellow]could not delete the policies: {e}[/yellow]")
+    if cluster is None and api is not None and created_namespace:
+        _delete_policies(console, api)  # an existing cluster: remove what we made
     for p in procs:  # the operator and the back-test, each in its own process group
         if p.poll() is None:
             os.killpg(p.pid, signal.SIGTERM)
@@ -328,7 +332,7 @@ def _teardown(console: Console, api: Any, procs: list[subprocess.Popen], cluster
             os.killpg(p.pid, signal.SIGKILL)
             p.wait(5)
     if api is not None:
-        if cluster is None:
+        if cluster is None and created_namespace:
             from kubernetes import client as k8s
 
             try:
@@ -339,3 +343,30 @@ def _teardown(console: Console, api: Any, procs: list[subprocess.Popen], cluster
     if cluster is not None:
         cluster.stop()
     _step(console, "torn down", t0)
+
+
+def _delete_policies(console: Console, api: Any, wait_seconds: float = 30) -> None:
+    """Delete the demo's policies while the operator still runs, so its finalizer
+    restores each baseline; strip what is left after ``wait_seconds`` (the namespace is
+    going anyway) rather than leave it stuck Terminating."""
+    from kubernetes import client as k8s
+
+    custom = k8s.CustomObjectsApi(api)
+
+    def left() -> list[str]:
+        items = custom.list_namespaced_custom_object(GROUP, VERSION, NAMESPACE, PLURAL)
+        return [p["metadata"]["name"] for p in items["items"]]
+
+    try:
+        for name in left():
+            custom.delete_namespaced_custom_object(GROUP, VERSION, NAMESPACE, PLURAL, name)
+        deadline = time.monotonic() + wait_seconds
+        while (names := left()) and time.monotonic() < deadline:
+            time.sleep(0.5)
+        for name in names:
+            console.print(f"[yellow]policy {name}: the operator did not finish; removing its "
+                          "finalizer[/yellow]")  # fmt: skip
+            custom.patch_namespaced_custom_object(GROUP, VERSION, NAMESPACE, PLURAL, name,
+                                                  {"metadata": {"finalizers": None}})  # fmt: skip
+    except Exception as e:  # best effort: report and go on tearing down
+        console.print(f"[yellow]could not delete the policies: {e}[/yellow]")

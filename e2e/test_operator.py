@@ -96,12 +96,15 @@ def test_dry_run_leaves_hpa_untouched_and_reports_proposal(env: Env) -> None:
     assert h.spec.min_replicas == BASELINE and annotations(env) == {}
 
 
-@pytest.mark.parametrize("bad", ["stale", "malformed"])
+@pytest.mark.parametrize("bad", ["stale", "ends-too-soon", "malformed"])
 def test_stale_or_malformed_forecast_restores_baseline(env: Env, bad: str) -> None:
     raised(env)
-    if bad == "stale":
+    if bad == "stale":  # generated longer ago than maxAge (6h)
         old = pd.Timestamp.now(tz="UTC") - pd.Timedelta("7h")
         env.put_forecast(forecast_json(generated=old))
+        reason = "ForecastStale"
+    elif bad == "ends-too-soon":  # 18 minutes from now − 10m: ends before now + leadTime 15m
+        env.put_forecast(forecast_json(hours=0.3))
         reason = "ForecastStale"
     else:
         env.put_forecast('{"unit": "cores", "points": [oops')
@@ -124,22 +127,40 @@ def test_hand_edit_becomes_new_baseline(env: Env) -> None:
 
 def test_two_policies_on_one_hpa_conflict(env: Env) -> None:
     raised(env, "first")
-    env.create_policy(policy_body("second"))
+    # The later policy would set 10 (peak 9.5) if it wrote at all, so a write shows.
+    env.put_forecast(forecast_json(peak=9.5), name="second-forecast")
+    env.create_policy(policy_body("second", forecast={
+        "configMapRef": {"name": "second-forecast", "key": "f.json"}}))  # fmt: skip
     c = env.wait(lambda: (env.condition("second") or {}).get("reason") == "TargetConflict"
                  and env.condition("second"), "TargetConflict on the later policy")  # fmt: skip
     assert c["status"] == "False" and "first" in c["message"]
+    for _ in range(6):  # three 2 s timer ticks of both policies
+        h = env.hpa()
+        assert h.spec.min_replicas == 7, h.spec
+        assert h.metadata.annotations.get("floorcast.dev/policy") == "first"
+        time.sleep(1)
     env.wait(lambda: (env.condition("first") or {}).get("status") == "True", "first is Ready")
     assert annotations(env)["floorcast.dev/policy"] == "first"
 
 
 def test_url_outside_allow_list_is_refused(env: Env) -> None:
+    """Raised from a ConfigMap first, then re-pointed at a URL outside the allow-list:
+    refused, never fetched, and the floor it had raised is restored."""
     env.create_workload()
+    env.put_forecast(forecast_json())
     env.start_operator("--allow-url-host", "forecasts.example.test")
-    env.create_policy(policy_body("p", forecast={"url": "http://10.0.0.1:9/forecast.json"}))
+    env.create_policy(policy_body("p"))
+    env.wait(min_replicas(env, 7), "HPA minReplicas raised to 7")
+    env.custom.patch_namespaced_custom_object(
+        "floorcast.dev", "v1alpha1", env.namespace, "forecastscalingpolicies", "p",
+        {"spec": {"forecast": {"configMapRef": None,
+                               "url": "http://10.0.0.1:9/forecast.json"}}},
+    )  # fmt: skip
     c = env.wait(lambda: (env.condition("p") or {}).get("reason") == "UrlNotAllowed"
                  and env.condition("p"), "UrlNotAllowed")  # fmt: skip
     assert "10.0.0.1" in c["message"]
-    assert env.hpa().spec.min_replicas == BASELINE
+    env.wait(min_replicas(env, BASELINE), "the raised floor restored to the baseline")
+    assert annotations(env) == {}
 
 
 def test_url_forecast_from_an_allowed_host_raises_and_is_fetched_conditionally(env: Env) -> None:

@@ -90,6 +90,11 @@ def test_api_server_fills_the_same_defaults_as_policy_py(crd_installed, api_clie
                                 "end": "2026-12-01T11:00:00Z", "factor": 0}]},
             "factor",
         ),
+        ({"targetRef": {"name": "Web_1"}}, "spec.targetRef.name"),
+        ({"forecast": {"configMapRef": {"name": "fc/x", "key": "f.json"}}},
+         "spec.forecast.configMapRef.name"),
+        ({"forecast": {"url": "https://f.example/x", "maxAge": "0s"}},
+         "maxAge must be greater than zero"),
     ],
 )  # fmt: skip
 def test_api_server_rejects_what_policy_py_rejects(
@@ -103,6 +108,22 @@ def test_api_server_rejects_what_policy_py_rejects(
     # policy.py refuses the same document (after the server's defaults would apply).
     with pytest.raises(ValueError):
         parse_policy(obj, source="bad")
+
+
+def test_target_ref_is_immutable(crd_installed, api_client, namespace):
+    """A floor raised on one HPA must not be stranded by pointing the policy elsewhere:
+    the API server refuses the change (CEL transition rule ``self == oldSelf``)."""
+    create(api_client, namespace, policy("fixed"))
+    api = k8s.CustomObjectsApi(api_client)
+    with pytest.raises(ApiException) as e:
+        api.patch_namespaced_custom_object(GROUP, VERSION, namespace, PLURAL, "fixed",
+                                           {"spec": {"targetRef": {"name": "other"}}})  # fmt: skip
+    assert e.value.status == 422
+    assert "targetRef is immutable" in json.loads(e.value.body)["message"]
+    api.patch_namespaced_custom_object(GROUP, VERSION, namespace, PLURAL, "fixed",
+                                       {"spec": {"mode": "Enforce"}})  # other fields still change
+    got = api.get_namespaced_custom_object(GROUP, VERSION, namespace, PLURAL, "fixed")
+    assert got["spec"]["targetRef"]["name"] == "web" and got["spec"]["mode"] == "Enforce"
 
 
 def test_short_name_and_printer_columns(crd_installed, control_plane, api_client, namespace):

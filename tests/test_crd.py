@@ -109,3 +109,33 @@ def test_policy_refuses_day_units_like_the_crd():
             "  holdTime: 1d\n",
             source="t",
         )
+
+
+def _patterns(node: dict[str, Any], path: str = "") -> dict[str, str]:
+    """Every string pattern under ``node``, by dotted path (arrays as ``name[]``)."""
+    out = {path: node["pattern"]} if "pattern" in node else {}
+    for name, prop in (node.get("properties") or {}).items():
+        out.update(_patterns(prop, f"{path}.{name}" if path else name))
+    if "items" in node:
+        out.update(_patterns(node["items"], f"{path}[]"))
+    return out
+
+
+def test_every_string_pattern_is_the_one_policy_py_applies(schema):
+    got = _patterns(schema["properties"]["spec"])
+    names = {"targetRef.name", "forecast.configMapRef.name"}
+    assert {p for p, v in got.items() if v == policy._DNS_SUBDOMAIN.pattern} == names
+    assert got["forecast.configMapRef.key"] == policy._CONFIGMAP_KEY.pattern
+    durations = {p for p, v in got.items() if v == DURATION_PATTERN}
+    assert durations == {"leadTime", "holdTime", "forecast.maxAge"}
+    assert set(got) == names | durations | {"forecast.configMapRef.key", "forecast.url"}
+    # What the name pattern refuses, policy.py refuses too, with the field's path.
+    for bad in ("Web_1", "web.", "-web", "fc/x"):
+        assert not re.fullmatch(got["targetRef.name"], bad)
+        with pytest.raises(policy.PolicyError, match=r"spec\.targetRef\.name"):
+            policy.load_policy_text(
+                "apiVersion: floorcast.dev/v1alpha1\nkind: ForecastScalingPolicy\n"
+                f"metadata: {{name: a}}\nspec:\n  targetRef: {{name: '{bad}'}}\n"
+                "  forecast: {url: 'https://f.example/x'}\n  capacity: {fromHPA: true}\n",
+                source="t",
+            )

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import threading
+import time
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
@@ -35,6 +36,7 @@ class Served:
     last_modified: str | None = None
     status: int = 200
     location: str | None = None
+    trickle: float = 0.0  # seconds between bytes of the body (0: all at once)
     seen: list[tuple[str, str | None, str | None]] = field(default_factory=list)
 
 
@@ -59,7 +61,16 @@ def server() -> Iterator[tuple[str, Served]]:
                     self.send_header(name, value)
             self.send_header("Content-Length", str(len(served.body)))
             self.end_headers()
-            self.wfile.write(served.body)
+            if not served.trickle:
+                self.wfile.write(served.body)
+                return
+            for i in range(len(served.body)):
+                try:
+                    self.wfile.write(served.body[i : i + 1])
+                    self.wfile.flush()
+                except OSError:  # the client gave up: that is the point
+                    return
+                time.sleep(served.trickle)
 
         def log_message(self, *_: object) -> None:
             pass
@@ -142,3 +153,16 @@ def test_redirects_are_refused_and_bodies_capped(server) -> None:
     big = forecast_from_url(f"{base}/f.json?token=secret", small)
     assert big.reason == "ForecastInvalid" and "over 40 bytes" in big.message
     assert "secret" not in big.message  # the query string may carry a token
+
+
+def test_a_server_trickling_the_body_is_cut_off_at_the_timeout(server) -> None:
+    """Each byte comes well within the socket timeout, so only a deadline for the whole
+    body stops it; a reconcile thread must not be held for minutes."""
+    base, served = server
+    served.trickle = 0.2
+    fast = Settings(allowed_url_hosts=("127.0.0.1",), url_timeout_seconds=1)
+    began = time.monotonic()
+    got = forecast_from_url(f"{base}/f.json", fast)
+    took = time.monotonic() - began
+    assert got.reason == "ForecastMissing" and "not received within 1s" in got.message
+    assert took < 2.5, took  # the body alone would take len(body) * 0.2 s ≈ a minute

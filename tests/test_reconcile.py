@@ -111,6 +111,29 @@ CASES = [
      "DryRun", ["BaselineRestored", "DryRun"]),
     ("operator dry-run never restores", observed(h=hpa(7, **MANAGED), operator_dry_run=True),
      None, "DryRun", ["DryRun"]),
+    ("DryRun with a bad forecast restores the floor it had",
+     observed(policy("DryRun"), h=hpa(7, **MANAGED),
+              fc=ForecastState(reason="ForecastMissing", message="gone")),
+     2, "ForecastMissing", ["BaselineRestored", "ForecastMissing"]),
+    ("capacity unknown restores",
+     observed(h=hpa(7, **MANAGED), per_replica_error="no CPU request on the pods"), 2,
+     "CapacityUnknown", ["BaselineRestored", "CapacityUnknown"]),
+    ("invalid policy restores the HPA it raised",
+     replace(observed(h=hpa(7, **MANAGED)), policy=None, policy_error="spec.leadTime: bad"), 2,
+     "PolicyInvalid", ["PolicyInvalid", "BaselineRestored"]),
+    ("invalid policy leaves another policy's HPA alone",
+     replace(observed(h=hpa(7, **{**MANAGED, ANN_POLICY: "other"})), policy=None,
+             policy_error="spec.leadTime: bad"), None, "PolicyInvalid", ["PolicyInvalid"]),
+    ("invalid policy under operator dry-run writes nothing",
+     replace(observed(h=hpa(7, **MANAGED), operator_dry_run=True), policy=None,
+             policy_error="spec.leadTime: bad"), None, "PolicyInvalid", ["PolicyInvalid"]),
+    ("hand edit under operator dry-run: adopted once, nothing written",
+     observed(h=hpa(4, **MANAGED), operator_dry_run=True), None, "DryRun",
+     ["BaselineAdopted", "DryRun"]),
+    ("hand edit in DryRun with a bad forecast: adopted and restored",
+     observed(policy("DryRun"), h=hpa(4, **MANAGED),
+              fc=ForecastState(reason="ForecastStale", message="old")),
+     4, "ForecastStale", ["BaselineAdopted", "BaselineRestored", "ForecastStale"]),
 ]  # fmt: skip
 
 
@@ -175,6 +198,8 @@ def test_deletion_restores_baseline_and_only_for_the_owner() -> None:
     other = {**MANAGED, ANN_POLICY: "someone-else"}
     assert decide(observed(h=hpa(7, **other), deleting=True)).hpa_patch is None
     assert decide(observed(h=hpa(2), deleting=True)).hpa_patch is None
+    dry = decide(observed(h=hpa(7, **MANAGED), deleting=True, operator_dry_run=True))
+    assert dry.hpa_patch is None and dry.events == ()
 
 
 def _second_run(obs: Observed) -> Observed:

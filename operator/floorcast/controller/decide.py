@@ -154,15 +154,27 @@ def decide(obs: Observed) -> Decision:
         )
         return Decision(patch, None, False, evs, f"{ref}: deleted; " + _said(patch))
 
+    write_ok = not obs.operator_dry_run
     policy = obs.policy
     if policy is None or obs.policy_error:
+        # An edit that breaks a policy must not strand the floor it had raised: restore
+        # the HPA it names, but only if our annotations say this policy raised it.
+        ours = own is not None and hpa.annotations.get(ANN_POLICY) == obs.name
+        patch = _restore(own, hpa) if ours and write_ok and own else None
+        why = obs.policy_error or "invalid"
+        evs = (
+            [Event("Warning", POLICY_INVALID, why)] if _ready_reason(prev) != POLICY_INVALID else []
+        )
+        if patch is not None and own is not None:
+            msg = f"policy invalid; minReplicas restored to {own.baseline}"
+            evs.append(Event("Normal", BASELINE_RESTORED, msg))
         return _finish(
             obs,
+            patch,
+            [_c(READY, False, POLICY_INVALID, why)],
             None,
-            [_c(READY, False, POLICY_INVALID, obs.policy_error or "invalid")],
-            None,
-            (),
-            f"{ref}: invalid policy",
+            evs,
+            f"{ref}: invalid policy; " + _said(patch),
             baseline=own and own.baseline,
         )
     if obs.conflict_with:
@@ -189,9 +201,8 @@ def decide(obs: Observed) -> Decision:
             f"{ref}: target missing",
         )
 
-    events: list[Event] = [own.hand_edit] if own.hand_edit else []
+    events: list[Event] = []
     dry = obs.operator_dry_run or policy.spec.mode == "DryRun"
-    write_ok = not obs.operator_dry_run
     series = obs.forecast.series
     age = (obs.now - series.generated).total_seconds() if series and series.generated else None
     problem = _forecast_problem(obs, policy)
@@ -220,7 +231,7 @@ def decide(obs: Observed) -> Decision:
     if plan is None:
         assert problem is not None
         reason, msg = problem
-        patch = _restore(own, hpa) if write_ok and not dry else None
+        patch = _restore(own, hpa) if write_ok else None  # DryRun too: never strand a floor
         if patch is not None:
             events.append(
                 Event(
@@ -229,8 +240,14 @@ def decide(obs: Observed) -> Decision:
                     f"{msg}; minReplicas restored to baseline {own.baseline}",
                 )
             )
+        # The same words whether or not this run restored (an Event says when it did),
+        # so the next run finds the status unchanged.
         applied_reason = DRY_RUN if dry else BASELINE_RESTORED
-        applied_msg = "dry run: no write to the HPA" if dry else f"baseline {own.baseline} in force"
+        applied_msg = (
+            f"dry run: the HPA keeps its baseline {own.baseline}"
+            if dry
+            else f"baseline {own.baseline} in force"
+        )
         if not dry:
             extra["floor"] = own.baseline
         conds = [
@@ -358,6 +375,12 @@ def _finish(
     age: float | None = None,
 ) -> Decision:
     prev = obs.status or {}
+    # A hand edit is adopted as the baseline. When this decision writes the HPA, our
+    # annotations record it and the next run sees no edit; when it does not (dry run),
+    # the edit stays visible, so say so only while the baseline is news.
+    edit = ownership(obs.hpa).hand_edit if obs.hpa.exists and baseline is not None else None
+    if edit is not None and (patch is not None or prev.get("baseline") != baseline):
+        events = [edit, *events]
     now_iso = iso(obs.now)
     status: dict[str, Any] = {k: v for k, v in (extra or {}).items() if v is not None}
     if obs.generation is not None:

@@ -17,10 +17,12 @@ from __future__ import annotations
 
 import hashlib
 import threading
+import time
 import urllib.error
 import urllib.request
 from collections import OrderedDict
 from dataclasses import dataclass
+from typing import Any
 from urllib.parse import urlsplit
 
 from floorcast.controller.settings import Settings
@@ -97,10 +99,14 @@ def forecast_from_url(url: str, settings: Settings, cache: UrlCache | None = Non
         request.add_header("If-None-Match", known.etag)
     if known is not None and known.last_modified:
         request.add_header("If-Modified-Since", known.last_modified)
+    limit = settings.url_timeout_seconds
     try:
-        with _OPENER.open(request, timeout=settings.url_timeout_seconds) as resp:
-            body = resp.read(cap + 1)
+        with _OPENER.open(request, timeout=limit) as resp:
+            body = _read(resp, cap + 1, time.monotonic() + limit)
             etag, modified = resp.headers.get("ETag"), resp.headers.get("Last-Modified")
+    except _TooSlow:
+        return ForecastState(reason=FORECAST_MISSING,
+                             message=f"{shown}: body not received within {limit:g}s")  # fmt: skip
     except urllib.error.HTTPError as e:
         if e.code == 304 and known is not None:
             return known.state
@@ -118,6 +124,26 @@ def forecast_from_url(url: str, settings: Settings, cache: UrlCache | None = Non
     if cache is not None and state.series is not None:
         cache.put(url, _Fetched(etag, modified, digest, state))
     return state
+
+
+class _TooSlow(Exception):
+    pass
+
+
+def _read(resp: Any, cap: int, deadline: float) -> bytes:
+    """Up to ``cap`` bytes by a deadline for the whole body. The socket timeout alone
+    bounds each read, so a server trickling a byte at a time could hold a reconcile
+    thread (one of a few) for as long as it liked."""
+    chunks, size = [], 0
+    while size < cap:
+        if time.monotonic() > deadline:
+            raise _TooSlow
+        chunk = resp.read1(min(65536, cap - size))
+        if not chunk:
+            break
+        chunks.append(chunk)
+        size += len(chunk)
+    return b"".join(chunks)
 
 
 def _parse(body: bytes, shown: str, cap: int) -> ForecastState:

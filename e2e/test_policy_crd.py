@@ -88,7 +88,12 @@ def test_api_server_fills_the_same_defaults_as_policy_py(crd_installed, api_clie
         (
             {"plannedEvents": [{"name": "sale", "start": "2026-12-01T10:00:00Z",
                                 "end": "2026-12-01T11:00:00Z", "factor": 0}]},
-            "factor",
+            "factor must be greater than zero",
+        ),
+        (
+            {"plannedEvents": [{"name": "sale", "start": "2026-12-01T10:00:00Z",
+                                "end": "2026-12-01T11:00:00Z", "factor": -1.5}]},
+            "factor must be greater than zero",
         ),
         ({"targetRef": {"name": "Web_1"}}, "spec.targetRef.name"),
         ({"forecast": {"configMapRef": {"name": "fc/x", "key": "f.json"}}},
@@ -134,8 +139,8 @@ def test_short_name_and_printer_columns(crd_installed, control_plane, api_client
         what="kubectl get fsp",
     )
     header = out.splitlines()[0].split()
-    assert header[:4] == ["NAME", "TARGET", "MODE", "FLOOR"]
-    assert "READY" in header and header[-1] == "AGE"
+    assert header == ["NAME", "TARGET", "MODE", "FLOOR", "BASELINE", "NEXT", "CHANGE", "READY",
+                      "AGE"]  # fmt: skip
     assert "cols" in out and "Enforce" in out
     # The example policy in the repo is accepted by the real API server as shipped.
     example = yaml.safe_load((CRD.parents[1] / "docs" / "examples" / "policy.yaml").read_text())

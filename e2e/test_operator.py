@@ -214,3 +214,16 @@ def test_forecast_configmap_change_acts_promptly_without_waiting_for_the_timer(e
     env.put_forecast(forecast_json(peak=8.5))  # needs 9
     env.wait(min_replicas(env, 9), "floor raised after the ConfigMap change", timeout=15)
     assert time.monotonic() - started < 10  # the timer is 300 s: this was the watch
+
+
+def test_an_unlabelled_forecast_configmap_works_and_the_condition_says_why_it_is_slower(
+    env: Env,
+) -> None:
+    env.create_workload()
+    k8s.CoreV1Api(env.api).create_namespaced_config_map(env.namespace, {
+        "metadata": {"name": "web-forecast"}, "data": {"f.json": forecast_json()}})  # fmt: skip
+    env.start_operator()
+    env.create_policy(policy_body("p"))
+    env.wait(min_replicas(env, 7), "HPA minReplicas raised from an unlabelled ConfigMap")
+    c = env.wait(lambda: env.condition("p", "ForecastAvailable"), "ForecastAvailable")
+    assert c["status"] == "True" and "not labelled floorcast.dev/forecast=true" in c["message"]

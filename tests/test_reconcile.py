@@ -243,3 +243,10 @@ def test_conflict_goes_to_the_later_policy() -> None:
     assert conflict_winner(("2026-01-02T00:00:00Z", "b"), [("2026-01-01T00:00:00Z", "z")]) == "z"
     assert conflict_winner(("2026-01-01T00:00:00Z", "a"), [("2026-01-01T00:00:00Z", "b")]) is None
     assert conflict_winner(("2026-01-01T00:00:00Z", "b"), [("2026-01-01T00:00:00Z", "a")]) == "a"
+
+
+def test_a_forecast_note_reaches_the_condition_and_stays_put() -> None:
+    obs = observed(fc=ForecastState(series=forecast(), note="ConfigMap fc is not labelled"))
+    d = decide(obs)
+    assert cond(d, "ForecastAvailable")["message"].endswith("; ConfigMap fc is not labelled")
+    assert not decide(_second_run(obs)).status_changed

@@ -273,7 +273,8 @@ def decide(obs: Observed) -> Decision:
     if nxt is not None:
         extra["nextChange"] = {"at": iso(nxt.at), "replicas": nxt.new}
     peak = iso(_peak(plan, obs.now))
-    fc_ok = _c(FORECAST_AVAILABLE, True, FORECAST_OK, f"forecast until {iso(series.end)}")
+    note = f"; {obs.forecast.note}" if obs.forecast.note else ""
+    fc_ok = _c(FORECAST_AVAILABLE, True, FORECAST_OK, f"forecast until {iso(series.end)}{note}")
     if dry:
         patch = _restore(own, hpa) if write_ok else None  # switching to DryRun restores
         if patch is not None:

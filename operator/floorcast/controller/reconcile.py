@@ -15,7 +15,7 @@ import signal
 import threading
 import time
 from collections.abc import Callable, Iterable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import pandas as pd
@@ -25,7 +25,7 @@ from kubernetes.client.rest import ApiException
 from floorcast.controller import metrics
 from floorcast.controller.capacity import per_replica_from_hpa
 from floorcast.controller.decide import conflict_winner, decide
-from floorcast.controller.settings import Settings
+from floorcast.controller.settings import FORECAST_LABEL, Settings
 from floorcast.controller.state import Decision, ForecastState, HpaState, Observed
 from floorcast.kube import policies
 from floorcast.kube.hpa import Conflict, patch_hpa, read_hpa
@@ -101,9 +101,14 @@ def _forecast(rt: Runtime, p: Policy, configmaps: ConfigMapLookup | None) -> For
                                            timeout=s.api_timeout_seconds)  # fmt: skip
     else:
         data, rv = hit
-    return forecast_from_configmap(data, namespace=p.namespace, name=ref.name, key=ref.key,
-                                   max_bytes=s.max_forecast_bytes, resource_version=rv,
-                                   cache=rt.cache)  # fmt: skip
+    got = forecast_from_configmap(data, namespace=p.namespace, name=ref.name, key=ref.key,
+                                  max_bytes=s.max_forecast_bytes, resource_version=rv,
+                                  cache=rt.cache)  # fmt: skip
+    if hit is None and data is not None and configmaps is not None and got.series is not None:
+        got = replace(got, note=f"ConfigMap {ref.name} is not labelled {FORECAST_LABEL}=true, "
+                                "so it is read on every timer tick and a change waits for "
+                                "the next tick")  # fmt: skip
+    return got
 
 
 def observe(rt: Runtime, body: Mapping[str, Any], *, deleting: bool,

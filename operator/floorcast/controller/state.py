@@ -69,6 +69,8 @@ class ForecastState:
     series: Series | None = None
     reason: str | None = None
     message: str = ""
+    #: Something the policy's owner should know even though the forecast is usable.
+    note: str = ""
 
 
 @dataclass(frozen=True)

@@ -139,3 +139,55 @@ def test_every_string_pattern_is_the_one_policy_py_applies(schema):
                 "  forecast: {url: 'https://f.example/x'}\n  capacity: {fromHPA: true}\n",
                 source="t",
             )
+
+
+def _max_lengths(node: dict[str, Any], path: str = "") -> dict[str, int]:
+    out = {path: node["maxLength"]} if "maxLength" in node else {}
+    for name, prop in (node.get("properties") or {}).items():
+        out.update(_max_lengths(prop, f"{path}.{name}" if path else name))
+    if "items" in node:
+        out.update(_max_lengths(node["items"], f"{path}[]"))
+    return out
+
+
+def _doc(**spec: Any) -> dict[str, Any]:
+    body = {"targetRef": {"name": "web"}, "forecast": {"url": "https://f.example/x"},
+            "capacity": {"fromHPA": True}, **spec}  # fmt: skip
+    return {"apiVersion": policy.API_VERSION, "kind": policy.KIND, "metadata": {"name": "a"},
+            "spec": body}  # fmt: skip
+
+
+def test_string_lengths_are_the_crd_max_lengths(schema):
+    """At the CRD's maxLength policy.py accepts; one character more it refuses, naming the
+    field. Durations are left out: a 64-character duration is refused either way."""
+    limits = _max_lengths(schema["properties"]["spec"])
+    event = {"name": "sale", "start": "2026-12-01T10:00:00Z", "end": "2026-12-01T11:00:00Z",
+             "factor": 2}  # fmt: skip
+    build = {
+        "targetRef.name": lambda n: _doc(targetRef={"name": "a" * n}),
+        "forecast.configMapRef.name": lambda n: _doc(
+            forecast={"configMapRef": {"name": "a" * n, "key": "k"}}),
+        "forecast.configMapRef.key": lambda n: _doc(
+            forecast={"configMapRef": {"name": "fc", "key": "k" * n}}),
+        "forecast.url": lambda n: _doc(forecast={"url": "https://f.example/" + "x" * (n - 18)}),
+        "plannedEvents[].name": lambda n: _doc(plannedEvents=[{**event, "name": "e" * n}]),
+    }  # fmt: skip
+    checked = {
+        p
+        for p in limits
+        if not {
+            "leadTime",
+            "holdTime",
+            "forecast.maxAge",
+            "plannedEvents[].start",
+            "plannedEvents[].end",
+        }
+        & {p}
+    }
+    assert checked == set(build)
+    for path, make in build.items():
+        n = limits[path]
+        policy.parse_policy(make(n), source="t")  # at the limit: fine
+        field = "spec." + path.replace("[]", "[0]")
+        with pytest.raises(policy.PolicyError, match=re.escape(field)):
+            policy.parse_policy(make(n + 1), source="t")

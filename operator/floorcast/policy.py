@@ -58,6 +58,8 @@ _SPEC_FIELDS = (
     "targetRef", "forecast", "capacity", "leadTime", "holdTime", "headroom",
     "useUpperBound", "minReplicas", "maxReplicas", "mode", "plannedEvents",
 )  # fmt: skip
+#: maxLength in the CRD; every other string field allows 253 (a DNS subdomain name).
+MAX_URL_LENGTH, MAX_EVENT_NAME_LENGTH = 2048, 63
 _DNS_SUBDOMAIN = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$")
 _DNS_LABEL = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?$")
 _CONFIGMAP_KEY = re.compile(r"^[-._a-zA-Z0-9]+$")
@@ -190,12 +192,16 @@ class _Reader:
     def child(self, m: _M, path: str, allowed: Sequence[str]) -> _M:
         return self.mapping(self.take(m, path), path, allowed)
 
-    def string(self, m: _M, path: str, rule: _Rule | None = None, default: Any = _REQUIRED) -> Any:
+    def string(self, m: _M, path: str, rule: _Rule | None = None, default: Any = _REQUIRED,
+               max_length: int = 253) -> Any:  # fmt: skip
+        """A non-empty string; ``max_length`` is the CRD's maxLength for the field."""
         value = self.take(m, path, default)
         if value is None:
             return default
         if not isinstance(value, str) or not value.strip():
             self.fail(path, f"expected a non-empty string, got {_describe(value)}")
+        if len(value) > max_length:
+            self.fail(path, f"is {len(value)} characters long; at most {max_length} allowed")
         if rule is not None and not rule[0].match(value):
             self.fail(path, f"{value!r} is not valid; expected {rule[1]}")
         return value
@@ -285,7 +291,7 @@ def _forecast(r: _Reader, s: _M) -> ForecastSource:
         c = r.child(f, cp := f"{p}.configMapRef", ("name", "key"))
         key_rule = (_CONFIGMAP_KEY, "a ConfigMap key (letters, digits, '-', '_', '.')")
         ref = ConfigMapRef(r.string(c, f"{cp}.name", _NAME), r.string(c, f"{cp}.key", key_rule))
-    url = r.string(f, f"{p}.url", default=None)
+    url = r.string(f, f"{p}.url", default=None, max_length=MAX_URL_LENGTH)
     if url is not None:
         try:
             parts = urlsplit(url)
@@ -319,7 +325,7 @@ def _events(r: _Reader, value: object, p: str) -> tuple[PlannedEvent, ...]:
     seen: dict[str, int] = {}
     for i, item in enumerate(value):
         e = r.mapping(item, ep := f"{p}[{i}]", ("name", "start", "end", "factor"))
-        name = r.string(e, f"{ep}.name")
+        name = r.string(e, f"{ep}.name", max_length=MAX_EVENT_NAME_LENGTH)
         if name in seen:
             r.fail(f"{ep}.name", f"{name!r} is already used by {p}[{seen[name]}]; "
                                  "event names must be unique")  # fmt: skip

@@ -111,18 +111,19 @@ def test_policy_refuses_day_units_like_the_crd():
         )
 
 
-def _patterns(node: dict[str, Any], path: str = "") -> dict[str, str]:
-    """Every string pattern under ``node``, by dotted path (arrays as ``name[]``)."""
-    out = {path: node["pattern"]} if "pattern" in node else {}
+def _collect(node: dict[str, Any], key: str, path: str = "") -> dict[str, Any]:
+    """Every ``key`` (pattern, maxLength, ...) under ``node``, by dotted path (arrays
+    as ``name[]``)."""
+    out = {path: node[key]} if key in node else {}
     for name, prop in (node.get("properties") or {}).items():
-        out.update(_patterns(prop, f"{path}.{name}" if path else name))
+        out.update(_collect(prop, key, f"{path}.{name}" if path else name))
     if "items" in node:
-        out.update(_patterns(node["items"], f"{path}[]"))
+        out.update(_collect(node["items"], key, f"{path}[]"))
     return out
 
 
 def test_every_string_pattern_is_the_one_policy_py_applies(schema):
-    got = _patterns(schema["properties"]["spec"])
+    got = _collect(schema["properties"]["spec"], "pattern")
     names = {"targetRef.name", "forecast.configMapRef.name"}
     assert {p for p, v in got.items() if v == policy._DNS_SUBDOMAIN.pattern} == names
     assert got["forecast.configMapRef.key"] == policy._CONFIGMAP_KEY.pattern
@@ -141,15 +142,6 @@ def test_every_string_pattern_is_the_one_policy_py_applies(schema):
             )
 
 
-def _max_lengths(node: dict[str, Any], path: str = "") -> dict[str, int]:
-    out = {path: node["maxLength"]} if "maxLength" in node else {}
-    for name, prop in (node.get("properties") or {}).items():
-        out.update(_max_lengths(prop, f"{path}.{name}" if path else name))
-    if "items" in node:
-        out.update(_max_lengths(node["items"], f"{path}[]"))
-    return out
-
-
 def _doc(**spec: Any) -> dict[str, Any]:
     body = {"targetRef": {"name": "web"}, "forecast": {"url": "https://f.example/x"},
             "capacity": {"fromHPA": True}, **spec}  # fmt: skip
@@ -160,7 +152,7 @@ def _doc(**spec: Any) -> dict[str, Any]:
 def test_string_lengths_are_the_crd_max_lengths(schema):
     """At the CRD's maxLength policy.py accepts; one character more it refuses, naming the
     field. Durations are left out: a 64-character duration is refused either way."""
-    limits = _max_lengths(schema["properties"]["spec"])
+    limits = _collect(schema["properties"]["spec"], "maxLength")
     event = {"name": "sale", "start": "2026-12-01T10:00:00Z", "end": "2026-12-01T11:00:00Z",
              "factor": 2}  # fmt: skip
     build = {

@@ -125,27 +125,25 @@ def ready_count(api: k8s.ApiClient) -> int:
 QUIET_S = 15.0
 
 
-def quiesce(api: k8s.ApiClient, limit: float = 600) -> float:
-    """Wait until no policy's resourceVersion changes for QUIET_S seconds.
+def quiesce(cp: ControlPlane, limit: float = 900) -> float:
+    """Wait until the operator makes no write (apiserver_writes) for QUIET_S seconds.
 
     Ready and settled is not the end of start-up at a few thousand policies: kopf may
-    still be re-processing events of its own flood (measured at 2000: about 1300-1950
-    creation runs more than policies), and those patches would be counted as idle
-    writes. The idle window starts only once the policies have been quiet."""
+    still be re-processing events of its own flood (measured at 2000 policies: a second
+    pass of annotation patches, most of them no-ops that leave resourceVersion alone,
+    ending about 90 s after all were Ready), and those would be counted as idle writes.
+    The idle window starts only once the API server has seen the operator go quiet."""
     began = time.monotonic()
-    custom = k8s.CustomObjectsApi(api)
-    last, since = None, time.monotonic()
+    last, _ = apiserver_writes(cp)
+    since = time.monotonic()
     while time.monotonic() - began < limit:
-        items = custom.list_namespaced_custom_object(GROUP, VERSION, NS, PLURAL)["items"]
-        # The items' own versions: the list's resourceVersion is the cluster-wide etcd
-        # revision, which every HPA status update moves.
-        rv = sorted((p["metadata"]["name"], p["metadata"]["resourceVersion"]) for p in items)
-        if rv != last:
-            last, since = rv, time.monotonic()
+        time.sleep(3)
+        now, _ = apiserver_writes(cp)
+        if delta(now, last):
+            last, since = now, time.monotonic()
         elif time.monotonic() - since >= QUIET_S:
             return time.monotonic() - began
-        time.sleep(1)
-    raise SystemExit(f"policies still changing after {limit:.0f}s")
+    raise SystemExit(f"the operator was still writing after {limit:.0f}s")
 
 
 def apiserver_writes(cp: ControlPlane) -> tuple[dict[str, float], float]:
@@ -248,8 +246,8 @@ def main() -> None:
             time.sleep(2)
         print(f"all {n} policies Ready and settled {time.monotonic() - began:.1f}s after start",
               flush=True)  # fmt: skip
-        quiet = quiesce(api)
-        print(f"policies unchanged for {QUIET_S:.0f}s after {quiet:.1f}s more (kopf's trailing "
+        quiet = quiesce(cp)
+        print(f"no operator write for {QUIET_S:.0f}s, {quiet:.1f}s later (kopf's trailing "
               "start-up work done)", flush=True)  # fmt: skip
 
         ours0, all0 = apiserver_writes(cp)

@@ -15,13 +15,13 @@ annotations on the HPA, so they survive an operator restart or crash.
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from floorcast.controller.conditions import APPLIED, FORECAST_AVAILABLE, READY, Condition, render
+from floorcast.controller.ownership import ownership, restore
 from floorcast.controller.state import (  # noqa: F401  (re-exported)
     ANN_BASELINE,
     ANN_FLOOR,
@@ -54,49 +54,6 @@ from floorcast.errors import InputError
 from floorcast.plans import FloorPlan, plan_policy
 from floorcast.policy import Policy
 from floorcast.timefmt import iso
-
-
-def _int(value: object) -> int | None:
-    try:
-        n = int(str(value))
-    except (TypeError, ValueError):
-        return None
-    return n if n >= 1 else None
-
-
-@dataclass(frozen=True)
-class _Ownership:
-    baseline: int
-    managed: bool  # our annotations are on the HPA
-    hand_edit: Event | None
-
-
-def ownership(hpa: HpaState) -> _Ownership:
-    """Where the owner's baseline is: our annotation, or the HPA's own minReplicas.
-
-    A ``minReplicas`` that differs from the floor we last applied was set by someone
-    else; their value becomes the baseline (the owner's latest word wins).
-    """
-    ann = hpa.annotations or {}
-    base, applied = _int(ann.get(ANN_BASELINE)), _int(ann.get(ANN_FLOOR))
-    managed = any(k in ann for k in OUR_ANNOTATIONS)
-    if base is None or applied is None:
-        return _Ownership(hpa.min_replicas, managed, None)
-    if hpa.min_replicas != applied:
-        msg = (
-            f"minReplicas was changed to {hpa.min_replicas} outside floorcast (last applied "
-            f"floor {applied}); adopting {hpa.min_replicas} as the new baseline (was {base})"
-        )
-        return _Ownership(hpa.min_replicas, True, Event("Normal", "BaselineAdopted", msg))
-    return _Ownership(base, True, None)
-
-
-def _restore(o: _Ownership, hpa: HpaState) -> HpaPatch | None:
-    """Back to the owner's state: baseline in minReplicas, none of our annotations."""
-    if not o.managed and hpa.min_replicas == o.baseline:
-        return None
-    drop = {k: None for k in OUR_ANNOTATIONS}
-    return HpaPatch(o.baseline, drop, hpa.resource_version)
 
 
 def _peak(plan: FloorPlan, now: pd.Timestamp) -> pd.Timestamp:
@@ -140,7 +97,7 @@ def decide(obs: Observed) -> Decision:
     own = ownership(hpa) if hpa.exists else None
 
     if obs.deleting:
-        patch = _restore(own, hpa) if own and mine and not obs.operator_dry_run else None
+        patch = restore(own, hpa) if own and mine and not obs.operator_dry_run else None
         evs = (
             (
                 Event(
@@ -160,7 +117,7 @@ def decide(obs: Observed) -> Decision:
         # An edit that breaks a policy must not strand the floor it had raised: restore
         # the HPA it names, but only if our annotations say this policy raised it.
         ours = own is not None and hpa.annotations.get(ANN_POLICY) == obs.name
-        patch = _restore(own, hpa) if ours and write_ok and own else None
+        patch = restore(own, hpa) if ours and write_ok and own else None
         why = obs.policy_error or "invalid"
         evs = (
             [Event("Warning", POLICY_INVALID, why)] if _ready_reason(prev) != POLICY_INVALID else []
@@ -231,7 +188,7 @@ def decide(obs: Observed) -> Decision:
     if plan is None:
         assert problem is not None
         reason, msg = problem
-        patch = _restore(own, hpa) if write_ok else None  # DryRun too: never strand a floor
+        patch = restore(own, hpa) if write_ok else None  # DryRun too: never strand a floor
         if patch is not None:
             events.append(
                 Event(
@@ -276,7 +233,7 @@ def decide(obs: Observed) -> Decision:
     note = f"; {obs.forecast.note}" if obs.forecast.note else ""
     fc_ok = _c(FORECAST_AVAILABLE, True, FORECAST_OK, f"forecast until {iso(series.end)}{note}")
     if dry:
-        patch = _restore(own, hpa) if write_ok else None  # switching to DryRun restores
+        patch = restore(own, hpa) if write_ok else None  # switching to DryRun restores
         if patch is not None:
             events.append(
                 Event(
@@ -322,7 +279,7 @@ def decide(obs: Observed) -> Decision:
             else HpaPatch(floor, want, hpa.resource_version)
         )
     else:
-        patch = _restore(own, hpa)  # at the baseline: leave the HPA as its owner had it
+        patch = restore(own, hpa)  # at the baseline: leave the HPA as its owner had it
     if hpa.min_replicas != floor:
         verb = "raised" if floor > hpa.min_replicas else "lowered"
         why = f" (peak at {peak})" if floor > hpa.min_replicas else f" (baseline {own.baseline})"

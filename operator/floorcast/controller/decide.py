@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 
 from floorcast.controller.conditions import APPLIED, FORECAST_AVAILABLE, READY, Condition, render
-from floorcast.controller.ownership import ownership, restore
+from floorcast.controller.ownership import Ownership, ownership, restore
 from floorcast.controller.state import (  # noqa: F401  (re-exported)
     ANN_BASELINE,
     ANN_FLOOR,
@@ -132,7 +132,7 @@ def decide(obs: Observed) -> Decision:
             None,
             evs,
             f"{ref}: invalid policy; " + _said(patch),
-            baseline=own and own.baseline,
+            own=own,
         )
     if obs.conflict_with:
         msg = (
@@ -221,7 +221,7 @@ def decide(obs: Observed) -> Decision:
             extra,
             events,
             f"{ref}: {reason}: {msg}; " + _said(patch),
-            baseline=own.baseline,
+            own=own,
             age=age,
         )
 
@@ -264,7 +264,7 @@ def decide(obs: Observed) -> Decision:
             extra,
             events,
             f"{ref}: DryRun {said}",
-            baseline=own.baseline,
+            own=own,
             floor=floor,
             age=age,
         )
@@ -299,7 +299,7 @@ def decide(obs: Observed) -> Decision:
         extra,
         events,
         f"{ref}: Enforce {msg}; " + _said(patch),
-        baseline=own.baseline,
+        own=own,
         floor=floor,
         age=age,
     )
@@ -328,15 +328,16 @@ def _finish(
     events: Any,
     log: str,
     *,
-    baseline: int | None = None,
+    own: Ownership | None = None,
     floor: int | None = None,
     age: float | None = None,
 ) -> Decision:
     prev = obs.status or {}
+    baseline = own.baseline if own is not None else None
     # A hand edit is adopted as the baseline. When this decision writes the HPA, our
     # annotations record it and the next run sees no edit; when it does not (dry run),
     # the edit stays visible, so say so only while the baseline is news.
-    edit = ownership(obs.hpa).hand_edit if obs.hpa.exists and baseline is not None else None
+    edit = own.hand_edit if own is not None else None
     if edit is not None and (patch is not None or prev.get("baseline") != baseline):
         events = [edit, *events]
     now_iso = iso(obs.now)

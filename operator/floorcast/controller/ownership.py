@@ -29,13 +29,13 @@ def _int(value: object) -> int | None:
 
 
 @dataclass(frozen=True)
-class _Ownership:
+class Ownership:
     baseline: int
     managed: bool  # our annotations are on the HPA
     hand_edit: Event | None
 
 
-def ownership(hpa: HpaState) -> _Ownership:
+def ownership(hpa: HpaState) -> Ownership:
     """Where the owner's baseline is: our annotation, or the HPA's own minReplicas.
 
     A ``minReplicas`` that differs from the floor we last applied was set by someone
@@ -45,17 +45,17 @@ def ownership(hpa: HpaState) -> _Ownership:
     base, applied = _int(ann.get(ANN_BASELINE)), _int(ann.get(ANN_FLOOR))
     managed = any(k in ann for k in OUR_ANNOTATIONS)
     if base is None or applied is None:
-        return _Ownership(hpa.min_replicas, managed, None)
+        return Ownership(hpa.min_replicas, managed, None)
     if hpa.min_replicas != applied:
         msg = (
             f"minReplicas was changed to {hpa.min_replicas} outside floorcast (last applied "
             f"floor {applied}); adopting {hpa.min_replicas} as the new baseline (was {base})"
         )
-        return _Ownership(hpa.min_replicas, True, Event("Normal", "BaselineAdopted", msg))
-    return _Ownership(base, True, None)
+        return Ownership(hpa.min_replicas, True, Event("Normal", "BaselineAdopted", msg))
+    return Ownership(base, True, None)
 
 
-def restore(o: _Ownership, hpa: HpaState) -> HpaPatch | None:
+def restore(o: Ownership, hpa: HpaState) -> HpaPatch | None:
     """Back to the owner's state: baseline in minReplicas, none of our annotations."""
     if not o.managed and hpa.min_replicas == o.baseline:
         return None

@@ -27,6 +27,9 @@ from e2e.controlplane.runner import ControlPlane
 from e2e.controlplane.tokens import ServiceAccountCredentials, service_account_credentials
 from e2e.helpers import eventually
 
+# The operator tests' fixtures (a workload namespace bound to the operator's RBAC).
+from e2e.operator_env import env_fixture, operator_cluster  # noqa: F401
+
 KUBECONFIG_ENV = "FLOORCAST_KUBECONFIG"
 E2E_DIR = Path(__file__).resolve().parent
 NAMESPACE_LABEL = "e2e.floorcast.dev/test"

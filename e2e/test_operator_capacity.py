@@ -11,13 +11,11 @@ from __future__ import annotations
 import pytest
 from kubernetes import client as k8s
 
-from e2e.operator_env import (  # noqa: F401  (fixtures)
+from e2e.operator_env import (
     BASELINE,
     Env,
-    env_fixture,
     forecast_json,
     min_replicas,
-    operator_cluster,
     policy_body,
 )
 

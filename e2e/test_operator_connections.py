@@ -24,16 +24,14 @@ from urllib.parse import urlsplit
 import pytest
 from kubernetes import client as k8s
 
-from e2e.operator_env import (  # noqa: F401  (fixtures)
+from e2e.operator_env import (
     BASELINE,
     GROUP,
     HPA_MAX,
     PLURAL,
     VERSION,
     Env,
-    env_fixture,
     forecast_json,
-    operator_cluster,
     policy_body,
 )
 from floorcast.controller.connections import connection_limit

@@ -15,13 +15,11 @@ import urllib.request
 import pytest
 from prometheus_client.parser import text_string_to_metric_families
 
-from e2e.operator_env import (  # noqa: F401  (fixtures)
+from e2e.operator_env import (
     BASELINE,
     Env,
-    env_fixture,
     forecast_json,
     min_replicas,
-    operator_cluster,
     policy_body,
 )
 

@@ -27,14 +27,12 @@ from prometheus_client.parser import text_string_to_metric_families
 
 from e2e.chart_env import Helm, by_kind, docs
 from e2e.chart_env import helm as helm  # the fixture
-from e2e.operator_env import (  # noqa: F401  (fixtures)
+from e2e.operator_env import (
     BASELINE,
     ROOT,
     Env,
-    env_fixture,
     forecast_json,
     min_replicas,
-    operator_cluster,
     policy_body,
 )
 

@@ -8,13 +8,11 @@ import time
 import pytest
 
 from e2e.controlplane.runner import ControlPlane
-from e2e.operator_env import (  # noqa: F401  (fixtures)
+from e2e.operator_env import (
     BASELINE,
     Env,
-    env_fixture,
     forecast_json,
     min_replicas,
-    operator_cluster,
     policy_body,
 )
 

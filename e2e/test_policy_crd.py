@@ -125,8 +125,9 @@ def test_target_ref_is_immutable(crd_installed, api_client, namespace):
                                            {"spec": {"targetRef": {"name": "other"}}})  # fmt: skip
     assert e.value.status == 422
     assert "targetRef is immutable" in json.loads(e.value.body)["message"]
-    api.patch_namespaced_custom_object(GROUP, VERSION, namespace, PLURAL, "fixed",
-                                       {"spec": {"mode": "Enforce"}})  # other fields still change
+    api.patch_namespaced_custom_object(
+        GROUP, VERSION, namespace, PLURAL, "fixed", {"spec": {"mode": "Enforce"}}
+    )  # other fields still change
     got = api.get_namespaced_custom_object(GROUP, VERSION, namespace, PLURAL, "fixed")
     assert got["spec"]["targetRef"]["name"] == "web" and got["spec"]["mode"] == "Enforce"
 

@@ -9,10 +9,12 @@ Everything is generated from a seed so every run, test and screenshot is the sam
 from __future__ import annotations
 
 from dataclasses import dataclass
+from importlib import resources
 
 import numpy as np
 import pandas as pd
 
+from floorcast.core.forecasting.engine import forecast_batch
 from floorcast.core.series import Series
 
 #: Monday 00:00 UTC; two weeks of history start here.
@@ -24,6 +26,8 @@ FORECAST_START = HISTORY_START + pd.Timedelta(days=HISTORY_DAYS)
 PAST_SALE = (pd.Timestamp("2026-11-27T18:00:00Z"), pd.Timestamp("2026-11-27T22:00:00Z"), 1.8)
 #: A stretch of history with no samples (a scrape outage), to show gap handling.
 HISTORY_GAP = (pd.Timestamp("2026-11-20T03:10:00Z"), pd.Timestamp("2026-11-20T03:30:00Z"))
+#: The HPA the demo's Deployments get (and the planner and back-test assume).
+BASELINE, HPA_MAX, TARGET = 2, 20, 0.8
 
 
 @dataclass(frozen=True)
@@ -128,3 +132,23 @@ def demo_forecast(name: str, *, start: pd.Timestamp = FORECAST_START, hours: int
         source=f"demo:{name}-forecast",
         meta={"method": "demo-profile"},
     )
+
+
+def policy_text(service: str) -> str:
+    """The bundled demo policy YAML for a service (``data/shop/``), so the offline
+    and the live demo apply the very same policies."""
+    return (resources.files("floorcast") / "data" / "shop" / f"{service}.yaml").read_text()
+
+
+def forecast_shop(*, step: str = "5min", horizon: str = "24h") -> dict[str, Series]:
+    """Forecast every service from its history in one engine call (as ``floorcast
+    forecast --history-dir`` would), masking the past sale so it is not learnt."""
+    hist = [history(s.name, step=step) for s in SERVICES]
+    start, end, _ = PAST_SALE
+    result = forecast_batch(
+        hist,
+        horizon=horizon,
+        event_windows=[(start, end)],
+        generated=FORECAST_START,
+    )
+    return {s.name: result.series(i) for i, s in enumerate(SERVICES)}

@@ -15,7 +15,6 @@ it; elsewhere the user passes ``--kubeconfig`` to a throw-away cluster or ``--of
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from importlib import resources
 from pathlib import Path
 
 import click
@@ -25,18 +24,16 @@ from rich.table import Table
 
 from floorcast import replay, scenario
 from floorcast.cli.plan import print_plan
-from floorcast.core.forecasting.engine import forecast_batch
 from floorcast.core.series import Series, to_json_text
 from floorcast.plans import FloorPlan, plan_policy
 from floorcast.policy import load_policy_text
+from floorcast.scenario import BASELINE, HPA_MAX, TARGET, forecast_shop, policy_text
 from floorcast.timefmt import iso
 
 HELP = (
     "Run floorcast on a built-in demo shop: on a local control plane with the operator "
     "(from a source checkout, or --kubeconfig), or --offline (forecast, plan, backtest)."
 )
-#: The HPA the demo's Deployments get (and the planner and back-test assume).
-BASELINE, HPA_MAX, TARGET = 2, 20, 0.8
 
 
 @dataclass
@@ -47,25 +44,6 @@ class OfflineResult:
     plans: dict[str, FloorPlan]
     reports: dict[str, Path] = field(default_factory=dict)
     index: Path | None = None
-
-
-def policy_text(service: str) -> str:
-    """The bundled demo policy YAML for a service."""
-    return (resources.files("floorcast") / "data" / "shop" / f"{service}.yaml").read_text()
-
-
-def forecast_shop(*, step: str = "5min", horizon: str = "24h") -> dict[str, Series]:
-    """Forecast every service from its history in one engine call (as ``floorcast
-    forecast --history-dir`` would), masking the past sale so it is not learnt."""
-    hist = [scenario.history(s.name, step=step) for s in scenario.SERVICES]
-    start, end, _ = scenario.PAST_SALE
-    result = forecast_batch(
-        hist,
-        horizon=horizon,
-        event_windows=[(start, end)],
-        generated=scenario.FORECAST_START,
-    )
-    return {s.name: result.series(i) for i, s in enumerate(scenario.SERVICES)}
 
 
 def backtest_shop(out: Path, console: Console) -> dict[str, Path]:

@@ -27,10 +27,10 @@ from rich.live import Live
 from rich.table import Table
 
 from floorcast import scenario
-from floorcast.cli.demo import BASELINE, HPA_MAX, policy_text
 from floorcast.core.series import Series, to_json_text
 from floorcast.durations import parse_duration
 from floorcast.errors import InputError
+from floorcast.scenario import BASELINE, HPA_MAX, forecast_shop, policy_text
 
 #: Forecast time runs this much faster than the wall clock (5 min -> 5 s).
 SPEED = 60
@@ -248,8 +248,6 @@ def run_live(
         api = k8s_config.new_client_from_config(str(admin))
         _install(api, console, result)
         t0 = time.monotonic()
-        from floorcast.cli.demo import forecast_shop
-
         with console.status("forecasting each service from its two weeks of history"):
             forecasts = forecast_shop()
         now = pd.Timestamp.now(tz="UTC")

@@ -60,6 +60,18 @@ _SPEC_FIELDS = (
 )  # fmt: skip
 #: maxLength in the CRD; every other string field allows 253 (a DNS subdomain name).
 MAX_URL_LENGTH, MAX_EVENT_NAME_LENGTH = 2048, 63
+#: maxLength of every duration and event time in the CRD.
+MAX_DURATION_LENGTH = MAX_TIME_LENGTH = 64
+#: Upper bounds, the same in the CRD (``maximum`` and CEL rules; tests/test_crd.py and
+#: the server-side property test hold them together). They are far above any sensible
+#: setting and low enough that no product of them can overflow planning: a week of
+#: lead, hold or age; 1000 % headroom; a 1000× event; int32 replica counts as the HPA has.
+MAX_DURATION = timedelta(days=7)
+MAX_HEADROOM = 10.0
+MAX_FACTOR = 1000.0
+MAX_PER_REPLICA = 1e12
+MAX_REPLICAS = 2**31 - 1
+MAX_EVENTS = 100
 _DNS_SUBDOMAIN = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$")
 _DNS_LABEL = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?$")
 _CONFIGMAP_KEY = re.compile(r"^[-._a-zA-Z0-9]+$")
@@ -206,22 +218,29 @@ class _Reader:
             self.fail(path, f"{value!r} is not valid; expected {rule[1]}")
         return value
 
-    def number(self, m: _M, path: str, *, above: float, inclusive: bool = False,
-               default: Any = _REQUIRED) -> Any:  # fmt: skip
+    def number(self, m: _M, path: str, *, above: float, maximum: float,
+               inclusive: bool = False, default: Any = _REQUIRED) -> Any:  # fmt: skip
+        """A number in (above, maximum] or [above, maximum]; a 400-digit integer is
+        compared exactly (never converted to float first, which would overflow)."""
         value = self.take(m, path, default)
         if value is None:
             return default
         if isinstance(value, bool) or not isinstance(value, int | float):
             self.fail(path, f"expected a number, got {_describe(value)}")
-        if not math.isfinite(value) or value < above or (value == above and not inclusive):
+        finite = not isinstance(value, float) or math.isfinite(value)
+        if not finite or value < above or (value == above and not inclusive) or value > maximum:
             op = ">=" if inclusive else ">"
-            self.fail(path, f"expected a finite number {op} {above:g}, got {value!r}")
+            shown = repr(value) if len(repr(value)) <= 40 else repr(value)[:37] + "..."
+            self.fail(path, f"expected a finite number {op} {above:g} and <= {maximum:g}, "
+                            f"got {shown}")  # fmt: skip
         return float(value)
 
     def integer(self, m: _M, path: str, *, minimum: int) -> int | None:
         value = self.take(m, path, None)
-        if value is not None and (type(value) is not int or value < minimum):
-            self.fail(path, f"expected an integer >= {minimum}, got {_describe(value)}")
+        if value is not None and (type(value) is not int or not minimum <= value <= MAX_REPLICAS):
+            shown = _describe(value) if len(str(value)) <= 40 else "a longer number"
+            self.fail(path, f"expected an integer >= {minimum} and <= {MAX_REPLICAS}, "
+                            f"got {shown}")  # fmt: skip
         return value
 
     def boolean(self, m: _M, path: str, default: bool) -> bool:
@@ -234,13 +253,19 @@ class _Reader:
         value = self.take(m, path, default)
         if value is None:
             return default
+        if isinstance(value, str) and len(value) > MAX_DURATION_LENGTH:
+            self.fail(path, f"is {len(value)} characters long; at most "
+                            f"{MAX_DURATION_LENGTH} allowed")  # fmt: skip
         try:
-            return parse_duration(value, field=path, allow_zero=allow_zero, days=False)
+            return parse_duration(value, field=path, allow_zero=allow_zero, days=False,
+                                  maximum=MAX_DURATION)  # fmt: skip
         except InputError as e:
             self.fail(path, e.problem.removeprefix(f"{path}: "))
 
     def timestamp(self, m: _M, path: str) -> pd.Timestamp:
         value = self.take(m, path)
+        if isinstance(value, str) and len(value) > MAX_TIME_LENGTH:
+            self.fail(path, f"is {len(value)} characters long; at most {MAX_TIME_LENGTH} allowed")
         if not isinstance(value, str) or not _RFC3339.match(value):
             example = "'2025-11-28T06:00:00Z'"
             self.fail(path, f"expected an RFC 3339 time with offset such as {example}, "
@@ -275,7 +300,8 @@ def parse_spec(spec: _M, *, source: str = "policy") -> PolicySpec:
         capacity=_capacity(r, s),
         lead_time=r.duration(s, "spec.leadTime", default=DEFAULT_LEAD_TIME, allow_zero=False),
         hold_time=r.duration(s, "spec.holdTime", default=DEFAULT_HOLD_TIME, allow_zero=True),
-        headroom=r.number(s, "spec.headroom", above=0, inclusive=True, default=DEFAULT_HEADROOM),
+        headroom=r.number(s, "spec.headroom", above=0, inclusive=True, maximum=MAX_HEADROOM,
+                          default=DEFAULT_HEADROOM),
         use_upper_bound=r.boolean(s, "spec.useUpperBound", DEFAULT_USE_UPPER_BOUND),
         min_replicas=low,
         max_replicas=high,
@@ -308,7 +334,8 @@ def _forecast(r: _Reader, s: _M) -> ForecastSource:
 
 def _capacity(r: _Reader, s: _M) -> Capacity:
     c = r.child(s, p := "spec.capacity", ("perReplica", "fromHPA"))
-    per_replica = r.number(c, f"{p}.perReplica", above=0, default=None)
+    per_replica = r.number(c, f"{p}.perReplica", above=0, maximum=MAX_PER_REPLICA,
+                           default=None)
     from_hpa = r.boolean(c, f"{p}.fromHPA", False)
     if (per_replica is not None) == from_hpa:
         which = "both" if from_hpa else "neither"
@@ -321,6 +348,8 @@ def _events(r: _Reader, value: object, p: str) -> tuple[PlannedEvent, ...]:
         return ()
     if not isinstance(value, list | tuple):
         r.fail(p, f"expected a list of events, got {_describe(value)}")
+    if len(value) > MAX_EVENTS:
+        r.fail(p, f"has {len(value)} events; at most {MAX_EVENTS} allowed")
     events: list[PlannedEvent] = []
     seen: dict[str, int] = {}
     for i, item in enumerate(value):
@@ -334,7 +363,7 @@ def _events(r: _Reader, value: object, p: str) -> tuple[PlannedEvent, ...]:
         if end <= start:
             r.fail(f"{ep}.end", f"{end.isoformat()} is not after start {start.isoformat()}; "
                                 "expected end > start")  # fmt: skip
-        factor = r.number(e, f"{ep}.factor", above=0)
+        factor = r.number(e, f"{ep}.factor", above=0, maximum=MAX_FACTOR)
         events.append(PlannedEvent(name=name, start=start, end=end, factor=factor))
     return tuple(events)
 

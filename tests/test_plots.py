@@ -80,3 +80,39 @@ def test_plot_plan_writes_a_png_of_the_figure_size(plan, tmp_path):
     assert head[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification, 5.2)
     width, height = struct.unpack(">II", head[16:24])  # IHDR width/height
     assert (width, height) == (11 * 110, round(6.5 * 110))
+
+
+def _near(img: np.ndarray, colour: str, tol: float = 0.02) -> int:
+    """How many pixels are (almost) exactly ``colour``."""
+    rgb = np.array(mcolors.to_rgb(colour))
+    return int((np.abs(img[..., :3] - rgb).max(axis=-1) < tol).sum())
+
+
+def test_backtest_report_shares_the_palette(tmp_path):
+    import base64
+    import io
+    import re
+
+    import matplotlib.image as mimage
+
+    from floorcast import replay
+    from floorcast.cli.report import write_report
+
+    spec = load_policy_text(scenario.policy_text("storefront"), source="storefront.yaml").spec
+    setup = replay.Setup(baseline=2, hpa_max=30, target_utilization=0.8, per_replica=0.8,
+                         method="seasonal-naive", season="1d")  # fmt: skip
+    result = replay.run(spec, scenario.history("storefront", step="5min"), setup)
+    out = tmp_path / "r.html"
+    write_report(result, out, title="shop/storefront", target=0.8)
+    page = out.read_text()
+    assert ps.css() in page and "#ccc" not in page  # the page's own stylesheet is the palette's
+    (data,) = re.findall(r"base64,([A-Za-z0-9+/=]+)", page)
+    img = mimage.imread(io.BytesIO(base64.b64decode(data)), format="png")
+    assert _near(img[:1, :1], ps.PAPER) == 1  # the paper, not matplotlib's white
+    assert _near(img, ps.FLOOR) > 100 and _near(img, ps.SIZED_ON) > 100  # floorcast and HPA rows
+    # matplotlib's blue, orange, green and red (tab10's first four): none of them
+    # anywhere. Its grey is left out: anti-aliased ink on paper passes through greys.
+    saturated = DEFAULT_CYCLE & {"#1f77b4", "#ff7f0e", "#2ca02c", "#d62728"}
+    assert len(saturated) == 4
+    for default in sorted(saturated):
+        assert _near(img, default) == 0, default

@@ -1,7 +1,8 @@
 """A self-contained HTML back-test report: one file, plots embedded as base64 PNG.
 
 Meant to be mailed or attached to a change request, so it references nothing outside
-itself (no scripts, stylesheets or images to fetch).
+itself (no scripts, stylesheets or images to fetch). Colours, stylesheet and words come
+from ``floorcast.plotstyle``, shared with the plan PNG.
 """
 
 from __future__ import annotations
@@ -19,14 +20,11 @@ import matplotlib.pyplot as plt
 import numpy as np
 import pandas as pd
 
+from floorcast import plotstyle as ps
 from floorcast.replay import Result
 
-COLORS = {"reactive": "tab:red", "static_peak": "tab:grey", "floorcast": "tab:blue"}
-LABELS = {
-    "reactive": "HPA alone",
-    "static_peak": "static peak floor",
-    "floorcast": "HPA + floorcast",
-}
+COLORS = ps.SCENARIO_COLORS
+LABELS = ps.SCENARIO_LABELS
 
 
 def _png(fig: plt.Figure) -> str:
@@ -41,9 +39,15 @@ def _plots(r: Result, target: float) -> str:
     # Thin to at most ~4000 points per line: the picture is the same, the file small.
     every = max(1, len(t) // 4000)
     t = t[::every]
+    with plt.rc_context(ps.rc()):
+        fig = _draw(r, target, t, every)
+    return _png(fig)
+
+
+def _draw(r: Result, target: float, t: pd.DatetimeIndex, every: int) -> plt.Figure:
     fig, axes = plt.subplots(3, 1, figsize=(12, 9), sharex=True)
     ax = axes[0]
-    ax.plot(t, r.demand[::every], color="black", lw=0.8, label="demand")
+    ax.plot(t, r.demand[::every], color=ps.INK, lw=ps.THIN_LW, label=ps.WORDS["demand"])
     ax.set_ylabel("load")
     ax.set_title("Recorded load")
     ax2 = axes[1]
@@ -51,8 +55,8 @@ def _plots(r: Result, target: float) -> str:
         i = r.row(key)
         ax2.step(t, r.trace.replicas[i, ::every], where="post", color=COLORS[key], lw=1.0,
                  label=LABELS[key])  # fmt: skip
-    ax2.step(t, r.minimum[r.row("floorcast"), ::every], where="post", color="tab:blue", lw=0.6,
-             ls=":", label="floorcast floor (minReplicas)")  # fmt: skip
+    ax2.step(t, r.minimum[r.row("floorcast"), ::every], where="post", color=ps.FLOOR, lw=0.7,
+             ls=":", label=f"floorcast {ps.WORDS['floor']}")  # fmt: skip
     ax2.set_ylabel("replicas")
     ax2.set_title("Replicas per scenario")
     ax3 = axes[2]
@@ -62,16 +66,15 @@ def _plots(r: Result, target: float) -> str:
         with np.errstate(divide="ignore", invalid="ignore"):
             util = target * r.demand[::every] / (ready * r.per_replica)
         ax3.plot(t, util * 100, color=COLORS[key], lw=0.7, label=LABELS[key])
-    ax3.axhline(target * 100, color="black", ls="--", lw=0.8, label="HPA target")
-    ax3.axhline(100, color="tab:red", ls=":", lw=0.8, label="100 % (under capacity above)")
+    ax3.axhline(target * 100, color=ps.INK, ls="--", lw=ps.THIN_LW, label=ps.WORDS["target"])
+    ax3.axhline(100, color=ps.RAISED, ls=":", lw=ps.THIN_LW, label="100 % (under capacity above)")
     ax3.set_ylabel("utilization of ready pods (%)")
     ax3.set_title("Utilization vs target")
     for a in axes:
-        a.grid(alpha=0.3)
-        a.legend(loc="upper left", fontsize=8)
+        a.legend(loc="upper left")
     fig.autofmt_xdate()
     fig.tight_layout()
-    return _png(fig)
+    return fig
 
 
 def write_report(r: Result, out: Path, *, title: str, target: float) -> None:
@@ -105,9 +108,7 @@ def write_report(r: Result, out: Path, *, title: str, target: float) -> None:
         )
     doc = f"""<!doctype html>
 <html><head><meta charset="utf-8"><title>floorcast backtest: {html.escape(title)}</title>
-<style>body{{font-family:sans-serif;max-width:1200px;margin:2em auto;color:#222}}
-table{{border-collapse:collapse}}td,th{{border:1px solid #ccc;padding:4px 10px;text-align:right}}
-td:first-child{{text-align:left}}</style></head><body>
+<style>{ps.css()}</style></head><body>
 <h1>Back-test: {html.escape(title)}</h1>
 <p>{r.start:%Y-%m-%d %H:%M} to {r.end:%Y-%m-%d %H:%M} UTC, HPA target {target:.0%},
 baseline {r.bounds.baseline}, ceiling {r.bounds.ceiling}, static floor {r.static_floor},

@@ -25,7 +25,7 @@ from e2e.chart_env import CHART, INSTALL_DIR, ROOT, VALUE_SETS, Helm, docs
 from e2e.chart_env import helm as helm  # the fixture
 from e2e.helpers import eventually
 from e2e.operator_env import BASELINE, Env, forecast_json, min_replicas, policy_body
-from floorcast.core.series import parse_forecast
+from floorcast.core.series_text import parse_forecast
 
 
 def _apply_dry_run(control_plane, rendered: str) -> str:

@@ -11,7 +11,8 @@ import pytest
 from floorcast import replay, scenario
 from floorcast.core import backtest as bt
 from floorcast.core.hpa_model import Trace
-from floorcast.core.series import Series, parse_history
+from floorcast.core.series import Series
+from floorcast.core.series_text import parse_history
 from floorcast.errors import InputError
 from floorcast.policy import load_policy_file
 

@@ -11,7 +11,7 @@ import pytest
 from cli_run import run
 
 from floorcast import scenario
-from floorcast.core.series import parse_forecast
+from floorcast.core.series_text import parse_forecast
 
 
 @pytest.fixture(scope="module")

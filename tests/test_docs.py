@@ -15,7 +15,7 @@ import pytest
 import yaml
 
 from floorcast.controller import metrics, state
-from floorcast.core.series import parse_forecast, parse_history
+from floorcast.core.series_text import parse_forecast, parse_history
 
 ROOT = Path(__file__).resolve().parents[1]
 DOCS = ROOT / "docs"

@@ -19,7 +19,8 @@ from floorcast.core.forecasting import bands, engine
 from floorcast.core.forecasting.base import ForecastError, as_batch, require_length
 from floorcast.core.forecasting.engine import Options, forecast_batch, forecast_series
 from floorcast.core.forecasting.select import call_rows
-from floorcast.core.series import Series, parse_forecast, to_json_text
+from floorcast.core.series import Series
+from floorcast.core.series_text import parse_forecast, to_json_text
 
 DAY = 288
 STEP = pd.Timedelta("5min")

@@ -11,15 +11,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from floorcast.core.series import (
-    DEFAULT_MAX_GAP,
-    Series,
-    SeriesError,
+from floorcast.core.series import DEFAULT_MAX_GAP, Series, SeriesError, fill_gaps, resample
+from floorcast.core.series_text import (
     detect_format,
-    fill_gaps,
     parse_forecast,
     parse_history,
-    resample,
     to_csv_text,
     to_json_text,
 )

@@ -24,7 +24,8 @@ from rich.table import Table
 
 from floorcast import replay, scenario
 from floorcast.cli.plan import print_plan
-from floorcast.core.series import Series, to_json_text
+from floorcast.core.series import Series
+from floorcast.core.series_text import to_json_text
 from floorcast.plans import FloorPlan, plan_policy
 from floorcast.policy import load_policy_text
 from floorcast.scenario import BASELINE, HPA_MAX, TARGET, forecast_shop, policy_text

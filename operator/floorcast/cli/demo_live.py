@@ -27,7 +27,8 @@ from rich.live import Live
 from rich.table import Table
 
 from floorcast import scenario
-from floorcast.core.series import Series, to_json_text
+from floorcast.core.series import Series
+from floorcast.core.series_text import to_json_text
 from floorcast.durations import parse_duration
 from floorcast.errors import InputError
 from floorcast.scenario import BASELINE, HPA_MAX, forecast_shop, policy_text

@@ -2,15 +2,16 @@
 
 Planning, back-testing and the operator all assume a fixed step, finite non-negative
 values and UTC times, so those guarantees are established once, here, and every
-violation becomes a ``SeriesError`` naming the source, the row and the problem. This
-module parses *text* only; reading files, ConfigMaps or HTTP bodies is the job of
-``floorcast.sources``. Times are held at microsecond resolution, pandas' own default.
+violation becomes a ``SeriesError`` naming the source, the row and the problem. The
+text formats (CSV, JSON) are ``series_text``, one layer up, which builds on this
+module and never the other way round; reading files, ConfigMaps or HTTP bodies is the
+job of ``floorcast.sources``. Times are held at microsecond resolution, pandas' own
+default.
 """
 
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -30,12 +31,6 @@ DEFAULT_STEP_TOLERANCE = 0.1
 MAX_POINTS = 10_000_000
 UNIT = "us"
 _SEC, _MS = 1_000_000, 1_000
-_TS = r"\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}:\d{2}(?:\.\d+)?(?:Z|[+-]\d{2}:\d{2})"
-_TS_ONE, _TS_RUN = re.compile(_TS), re.compile(rf"(?:{_TS}\n)*{_TS}")  # run: one C-level pass
-_NAIVE = re.compile(r"\d{4}-\d{2}-\d{2}(?:[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?)?")
-_POINT_KEYS = frozenset({"t", "value", "lower", "upper"})
-_TOP_KEYS = frozenset({"unit", "step", "generated", "points", "meta"})
-_CORE, _BANDS = ["timestamp", "value"], ["lower", "upper"]
 Problem = tuple[int, str] | None  # (index of the first bad sample, what is wrong)
 
 
@@ -412,27 +407,12 @@ def _bands(values: np.ndarray, lower: np.ndarray, upper: np.ndarray) -> Problem:
     return None if hi < 0 else (hi, f"value {values[hi]:g} is above the upper bound {upper[hi]:g}")
 
 
-# The text formats live in series_text.py (kept apart for size); re-exported so that
-# every caller imports from one place. At the bottom: series_text needs the names above.
-from floorcast.core.series_text import (  # noqa: E402
-    detect_format,
-    parse_forecast,
-    parse_history,
-    to_csv_text,
-    to_json_text,
-)
-
 __all__ = [
     "DEFAULT_MAX_GAP",
     "DEFAULT_STEP_TOLERANCE",
     "Series",
     "SeriesError",
-    "detect_format",
     "fill_gaps",
     "from_samples",
-    "parse_forecast",
-    "parse_history",
     "resample",
-    "to_csv_text",
-    "to_json_text",
 ]

@@ -1,8 +1,8 @@
-"""Series as text: the CSV and JSON formats of DESIGN.md, parsed and written.
+"""Series as text: the CSV and JSON formats of docs/formats.md, parsed and written.
 
-Split from ``series.py`` so the container and its grid logic stay readable; the
-public names are re-exported there, so callers import everything from
-``floorcast.core.series``. Parsing only: no file or network I/O here either.
+A layer above ``series.py``: it builds ``Series`` with that module's validation, and
+``series.py`` never imports it, so the container can be used (and imported) without
+the formats. Parsing only: no file or network I/O here either.
 """
 
 from __future__ import annotations
@@ -17,13 +17,6 @@ import numpy as np
 import pandas as pd
 
 from floorcast.core.series import (
-    _BANDS,
-    _CORE,
-    _NAIVE,
-    _POINT_KEYS,
-    _TOP_KEYS,
-    _TS_ONE,
-    _TS_RUN,
     DEFAULT_MAX_GAP,
     DEFAULT_STEP_TOLERANCE,
     UNIT,
@@ -40,6 +33,13 @@ from floorcast.core.series import (
 )
 from floorcast.durations import parse_duration
 from floorcast.errors import InputError
+
+_TS = r"\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}:\d{2}(?:\.\d+)?(?:Z|[+-]\d{2}:\d{2})"
+_TS_ONE, _TS_RUN = re.compile(_TS), re.compile(rf"(?:{_TS}\n)*{_TS}")  # run: one C-level pass
+_NAIVE = re.compile(r"\d{4}-\d{2}-\d{2}(?:[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?)?")
+_POINT_KEYS = frozenset({"t", "value", "lower", "upper"})
+_TOP_KEYS = frozenset({"unit", "step", "generated", "points", "meta"})
+_CORE, _BANDS = ["timestamp", "value"], ["lower", "upper"]
 
 # ------------------------------------------------------------------------ typed columns
 

@@ -12,7 +12,7 @@ from collections import OrderedDict
 from collections.abc import Mapping
 
 from floorcast.controller.state import FORECAST_INVALID, FORECAST_MISSING, ForecastState
-from floorcast.core.series import parse_forecast
+from floorcast.core.series_text import parse_forecast
 from floorcast.errors import InputError
 
 

@@ -1,4 +1,4 @@
-"""Series from and to local files: the file system half of what ``core.series`` parses.
+"""Series from and to local files: the file system half of what ``core.series_text`` parses.
 
 Errors name the path exactly as the user typed it, so the one-line CLI message points
 at the file they need to fix.
@@ -11,7 +11,8 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
-from floorcast.core.series import Series, parse_forecast, parse_history, to_csv_text, to_json_text
+from floorcast.core.series import Series
+from floorcast.core.series_text import parse_forecast, parse_history, to_csv_text, to_json_text
 from floorcast.errors import InputError
 
 _WRITERS = {".csv": to_csv_text, ".json": to_json_text}

@@ -32,7 +32,7 @@ from floorcast.controller.state import (
     URL_NOT_ALLOWED,
     ForecastState,
 )
-from floorcast.core.series import parse_forecast
+from floorcast.core.series_text import parse_forecast
 from floorcast.errors import InputError
 
 

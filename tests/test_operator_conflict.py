@@ -156,11 +156,28 @@ def test_409_is_retried_on_a_fresh_read_and_the_other_edit_is_kept(fake) -> None
     assert _conflicts() == before + 1
 
 
-def test_persistent_409_gives_up_without_writing_status(fake) -> None:
+def test_persistent_409_gives_up_and_says_so(fake) -> None:
+    """Issue #14 item 1: the failure is recorded (ReconcileFailed), and the fail-safe
+    leaves an HPA without our annotations exactly as its other writer set it."""
     state, url = fake
     state.conflicts = 100
+    d = _run(url)
+    assert len(state.patches) == CONFLICT_RETRIES + 1  # no fail-safe write: not ours
+    assert state.min_replicas == 3 and state.annotations == {}  # the other writer's value
+    ready = next(c for c in d.status["conditions"] if c["type"] == "Ready")
+    assert (ready["status"], ready["reason"]) == ("False", "ReconcileFailed")
+    assert len(state.status_patches) == 1 and state.events == 1
+
+
+def test_persistent_409_on_our_own_floor_raises(fake) -> None:
+    """When the HPA carries our floor and even the fail-safe restore is refused, the
+    reconcile raises so the caller retries (a delete keeps its finalizer)."""
+    state, url = fake
+    state.conflicts = 100
+    state.min_replicas = 5  # our floor from an earlier run; this one wants 7
+    state.annotations = {"floorcast.dev/baseline": "2", "floorcast.dev/applied-floor": "5",
+                         "floorcast.dev/policy": "p"}  # fmt: skip
     with pytest.raises(Conflict):
         _run(url)
-    assert len(state.patches) == CONFLICT_RETRIES + 1
-    assert state.status_patches == [] and state.events == 0
-    assert state.min_replicas == 3  # the other writer's value, untouched
+    assert len(state.patches) == CONFLICT_RETRIES + 2  # the fail-safe restore was tried
+    assert state.patches[-1]["spec"]["minReplicas"] == 3  # the re-read hand edit

@@ -109,8 +109,14 @@ CASES = [
      "TargetConflict", []),
     ("switch to DryRun restores baseline", observed(policy("DryRun"), h=hpa(7, **MANAGED)), 2,
      "DryRun", ["BaselineRestored", "DryRun"]),
-    ("operator dry-run never restores", observed(h=hpa(7, **MANAGED), operator_dry_run=True),
-     None, "DryRun", ["DryRun"]),
+    # Issue #14: restoring is always allowed, also under operator-wide --dry-run.
+    ("operator dry-run restores a floor raised before",
+     observed(h=hpa(7, **MANAGED), operator_dry_run=True), 2, "DryRun",
+     ["BaselineRestored", "DryRun"]),
+    ("operator dry-run, lost forecast restores",
+     observed(h=hpa(7, **MANAGED), operator_dry_run=True,
+              fc=ForecastState(reason="ForecastMissing", message="gone")),
+     2, "ForecastMissing", ["BaselineRestored", "ForecastMissing"]),
     ("DryRun with a bad forecast restores the floor it had",
      observed(policy("DryRun"), h=hpa(7, **MANAGED),
               fc=ForecastState(reason="ForecastMissing", message="gone")),
@@ -124,12 +130,13 @@ CASES = [
     ("invalid policy leaves another policy's HPA alone",
      replace(observed(h=hpa(7, **{**MANAGED, ANN_POLICY: "other"})), policy=None,
              policy_error="spec.leadTime: bad"), None, "PolicyInvalid", ["PolicyInvalid"]),
-    ("invalid policy under operator dry-run writes nothing",
+    ("invalid policy under operator dry-run restores too",
      replace(observed(h=hpa(7, **MANAGED), operator_dry_run=True), policy=None,
-             policy_error="spec.leadTime: bad"), None, "PolicyInvalid", ["PolicyInvalid"]),
-    ("hand edit under operator dry-run: adopted once, nothing written",
-     observed(h=hpa(4, **MANAGED), operator_dry_run=True), None, "DryRun",
-     ["BaselineAdopted", "DryRun"]),
+             policy_error="spec.leadTime: bad"), 2, "PolicyInvalid",
+     ["PolicyInvalid", "BaselineRestored"]),
+    ("hand edit under operator dry-run: adopted, our annotations dropped",
+     observed(h=hpa(4, **MANAGED), operator_dry_run=True), 4, "DryRun",
+     ["BaselineAdopted", "BaselineRestored", "DryRun"]),
     ("hand edit in DryRun with a bad forecast: adopted and restored",
      observed(policy("DryRun"), h=hpa(4, **MANAGED),
               fc=ForecastState(reason="ForecastStale", message="old")),
@@ -198,8 +205,9 @@ def test_deletion_restores_baseline_and_only_for_the_owner() -> None:
     other = {**MANAGED, ANN_POLICY: "someone-else"}
     assert decide(observed(h=hpa(7, **other), deleting=True)).hpa_patch is None
     assert decide(observed(h=hpa(2), deleting=True)).hpa_patch is None
+    # Issue #14: a delete under operator-wide --dry-run restores a floor raised before.
     dry = decide(observed(h=hpa(7, **MANAGED), deleting=True, operator_dry_run=True))
-    assert dry.hpa_patch is None and dry.events == ()
+    assert dry.hpa_patch is not None and dry.hpa_patch.min_replicas == 2
 
 
 def _second_run(obs: Observed) -> Observed:

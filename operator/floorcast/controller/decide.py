@@ -6,10 +6,12 @@ stale/invalid/missing forecasts, a missing target, a conflict, a hand edit, dele
 is a table-driven unit test rather than a cluster experiment. The adapters only
 observe and then carry out the ``Decision``.
 
-Safety rule (DESIGN.md): the HPA is never left worse than it was found. Every failure
-path either leaves it untouched or restores the owner's baseline, and no path writes a
-``minReplicas`` below the baseline. The baseline and the last applied floor live in
-annotations on the HPA, so they survive an operator restart or crash.
+Safety rule (docs/operations.md): the HPA is never left worse than it was found. Every
+failure path either leaves it untouched or restores the owner's baseline, and no path
+writes a ``minReplicas`` below the baseline. The baseline and the last applied floor
+live in annotations on the HPA, so they survive an operator restart or crash.
+Restoring is always allowed, also under operator-wide ``--dry-run``: dry-run stops
+floorcast from *raising* floors, never from undoing one it raised before.
 """
 
 from __future__ import annotations
@@ -94,10 +96,10 @@ def decide(obs: Observed) -> Decision:
     ref = f"{obs.namespace}/{obs.name}"
     hpa = obs.hpa
     mine = hpa.annotations.get(ANN_POLICY) in (None, obs.name)
-    own = ownership(hpa) if hpa.exists else None
+    own = ownership(hpa, prev) if hpa.exists else None
 
     if obs.deleting:
-        patch = restore(own, hpa) if own and mine and not obs.operator_dry_run else None
+        patch = restore(own, hpa) if own and mine else None
         evs = (
             (
                 Event(
@@ -111,13 +113,12 @@ def decide(obs: Observed) -> Decision:
         )
         return Decision(patch, None, False, evs, f"{ref}: deleted; " + _said(patch))
 
-    write_ok = not obs.operator_dry_run
     policy = obs.policy
     if policy is None or obs.policy_error:
         # An edit that breaks a policy must not strand the floor it had raised: restore
         # the HPA it names, but only if our annotations say this policy raised it.
         ours = own is not None and hpa.annotations.get(ANN_POLICY) == obs.name
-        patch = restore(own, hpa) if ours and write_ok and own else None
+        patch = restore(own, hpa) if ours and own else None
         why = obs.policy_error or "invalid"
         evs = (
             [Event("Warning", POLICY_INVALID, why)] if _ready_reason(prev) != POLICY_INVALID else []
@@ -181,6 +182,9 @@ def decide(obs: Observed) -> Decision:
             except InputError as e:
                 stale = "before now" in str(e)
                 problem = (FORECAST_STALE if stale else FORECAST_INVALID, str(e))
+            except Exception as e:  # a bug must not strand a floor: fall back, say why
+                problem = (FORECAST_INVALID, f"the floor could not be planned from this "
+                                             f"forecast ({type(e).__name__})")  # fmt: skip
     extra: dict[str, Any] = {"baseline": own.baseline}
     if series is not None and series.generated is not None:
         extra["forecastGenerated"] = iso(series.generated)
@@ -188,7 +192,7 @@ def decide(obs: Observed) -> Decision:
     if plan is None:
         assert problem is not None
         reason, msg = problem
-        patch = restore(own, hpa) if write_ok else None  # DryRun too: never strand a floor
+        patch = restore(own, hpa)  # DryRun and --dry-run too: never strand a floor
         if patch is not None:
             events.append(
                 Event(
@@ -233,7 +237,7 @@ def decide(obs: Observed) -> Decision:
     note = f"; {obs.forecast.note}" if obs.forecast.note else ""
     fc_ok = _c(FORECAST_AVAILABLE, True, FORECAST_OK, f"forecast until {iso(series.end)}{note}")
     if dry:
-        patch = restore(own, hpa) if write_ok else None  # switching to DryRun restores
+        patch = restore(own, hpa)  # switching to DryRun (or --dry-run) restores
         if patch is not None:
             events.append(
                 Event(

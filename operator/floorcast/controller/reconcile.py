@@ -5,6 +5,13 @@ HPA itself) goes first, status second. A crash between the two leaves the HPA's
 annotations telling the next run the truth, so it converges without losing the
 baseline. A 409 on the HPA means someone wrote it since we read it; we re-read and
 decide again, at most a few times, rather than overwrite their change.
+
+Fail safe (issue #14): a bug or an API failure while handling one policy never leaves
+a raised floor behind. Reading the policy, the forecast and the scale target each turn
+any exception into a problem ``decide`` restores on; ``decide`` itself is wrapped
+(``failsafe.decide_safely``); and if carrying the decision out fails, ``_recover``
+re-reads the HPA and restores the baseline on its own before the error propagates.
+Status messages name what failed (a type, an HTTP status), never the text that failed.
 """
 
 from __future__ import annotations
@@ -24,9 +31,17 @@ from kubernetes.client.rest import ApiException
 
 from floorcast.controller import metrics
 from floorcast.controller.capacity import per_replica_from_hpa
-from floorcast.controller.decide import conflict_winner, decide
+from floorcast.controller.decide import conflict_winner
+from floorcast.controller.failsafe import decide_safely, fail_safe
 from floorcast.controller.settings import FORECAST_LABEL, Settings
-from floorcast.controller.state import Decision, ForecastState, HpaState, Observed
+from floorcast.controller.state import (
+    FORECAST_INVALID,
+    FORECAST_MISSING,
+    Decision,
+    ForecastState,
+    HpaState,
+    Observed,
+)
 from floorcast.kube import policies
 from floorcast.kube.hpa import Conflict, patch_hpa, read_hpa
 from floorcast.kube.workload import read_pod_spec
@@ -87,9 +102,33 @@ def _policy(body: Mapping[str, Any], source: str) -> tuple[Policy | None, str | 
         return parse_policy(doc, source=source), None
     except PolicyError as e:
         return None, str(e)
+    except Exception as e:  # a parser bug: the policy is unusable, not the operator
+        return None, f"{source}: the policy could not be read ({type(e).__name__})"
+
+
+def _why(e: BaseException) -> str:
+    """What failed, for a status message: the exception's kind, never its text (which
+    may quote a ConfigMap or a server's answer)."""
+    if isinstance(e, ApiException):
+        return f"API error (HTTP {e.status or 'no status'})"
+    if isinstance(e, Conflict):
+        return f"the HPA kept changing while it was written ({CONFLICT_RETRIES + 1} tries)"
+    return f"internal error ({type(e).__name__})"
 
 
 def _forecast(rt: Runtime, p: Policy, configmaps: ConfigMapLookup | None) -> ForecastState:
+    try:
+        return _read_forecast(rt, p, configmaps)
+    except Exception as e:  # unreadable is missing: decide falls back to the baseline
+        ref = p.spec.forecast.config_map_ref
+        where = f"ConfigMap {p.namespace}/{ref.name}" if ref else "the forecast URL"
+        reason = FORECAST_MISSING if isinstance(e, ApiException) else FORECAST_INVALID
+        log.warning("%s/%s: reading %s failed: %r", p.namespace, p.name, where, e)
+        return ForecastState(reason=reason, message=f"{where}: {_why(e)}")
+
+
+def _read_forecast(rt: Runtime, p: Policy,
+                   configmaps: ConfigMapLookup | None) -> ForecastState:  # fmt: skip
     src, s = p.spec.forecast, rt.settings
     if src.url is not None:
         return forecast_from_url(src.url, s, rt.url_cache)
@@ -147,6 +186,14 @@ def _capacity(rt: Runtime, ns: str, pol: Policy | None,
     """capacity.fromHPA: read the scale target (read-only) and derive cores per replica."""
     if pol is None or not pol.spec.capacity.from_hpa or not hpa.exists:
         return None, None
+    try:
+        return _read_capacity(rt, ns, hpa)
+    except Exception as e:
+        log.warning("%s/%s: reading the scale target failed: %r", ns, pol.name, e)
+        return None, f"the HPA's scale target could not be read: {_why(e)}"
+
+
+def _read_capacity(rt: Runtime, ns: str, hpa: HpaState) -> tuple[float | None, str | None]:
     if hpa.cpu_target_utilization is None or hpa.scale_target is None:
         return per_replica_from_hpa(hpa, None)
     spec, why = read_pod_spec(rt.api, ns, hpa.scale_target,
@@ -157,43 +204,23 @@ def _capacity(rt: Runtime, ns: str, pol: Policy | None,
 def reconcile(rt: Runtime, body: Mapping[str, Any], *, deleting: bool = False,
               configmaps: ConfigMapLookup | None = None,
               targets: TargetLookup | None = None) -> Decision:  # fmt: skip
-    """Reconcile one policy; raises on API trouble (the caller retries later)."""
+    """Reconcile one policy. Raises only when the HPA could not be made safe (restored
+    or confirmed not ours): the caller retries later. Otherwise a failure has already
+    been turned into a restored baseline and a ``ReconcileFailed`` status."""
     meta = body.get("metadata", {})
-    ns, name, uid = meta["namespace"], meta["name"], meta.get("uid")
+    ns, name = meta["namespace"], meta["name"]
     started = time.monotonic()
-    timeout = rt.settings.api_timeout_seconds
     try:
         with rt.lock(ns, name):
-            forecast = None
-            for attempt in range(CONFLICT_RETRIES + 1):
-                obs = observe(rt, body, deleting=deleting, configmaps=configmaps,
-                              targets=targets, forecast=forecast)  # fmt: skip
-                forecast = obs.forecast  # a retry after 409 re-reads the HPA only
-                d = decide(obs)
-                if d.hpa_patch is None:
-                    break
-                target = obs.policy.spec.target_name if obs.policy else None
-                try:
-                    assert target is not None
-                    patch_hpa(rt.api, ns, target, d.hpa_patch, timeout=timeout)
-                except Conflict:
-                    metrics.ERRORS.labels("Conflict").inc()
-                    if attempt == CONFLICT_RETRIES:
-                        raise
-                    continue
-                metrics.PATCHES.labels(ns, name).inc()
-                if os.environ.get(FAULT_ENV):
-                    log.warning("%s set: killing the operator after the HPA patch", FAULT_ENV)
-                    os.kill(os.getpid(), signal.SIGKILL)
-                break
-            for ev in d.events:
-                try:
-                    policies.post_event(rt.api, ns, name, uid, ev, timeout=timeout)
-                except ApiException as e:  # an Event is best effort; the status says it all
-                    log.warning("%s/%s: could not post Event %s: %s", ns, name, ev.reason, e)
-            if d.status is not None and d.status_changed:
-                policies.write_status(rt.api, ns, name, d.status, obs.status, timeout=timeout)
-                rt.written[(ns, name)] = d.status
+            try:
+                d = _reconcile_locked(rt, body, deleting, configmaps, targets)
+            except Exception as e:
+                log.warning("%s/%s: reconcile failed: %r; falling back to the baseline",
+                            ns, name, e)  # fmt: skip
+                d = _recover(rt, body, deleting, e)
+                if d is None:
+                    raise
+                metrics.ERRORS.labels(type(e).__name__).inc()
         log.info("%s", d.log)
         if deleting:
             rt.forget(ns, name)
@@ -210,3 +237,93 @@ def reconcile(rt: Runtime, body: Mapping[str, Any], *, deleting: bool = False,
         raise
     finally:
         metrics.DURATION.observe(time.monotonic() - started)
+
+
+def _reconcile_locked(rt: Runtime, body: Mapping[str, Any], deleting: bool,
+                      configmaps: ConfigMapLookup | None,
+                      targets: TargetLookup | None) -> Decision:  # fmt: skip
+    meta = body.get("metadata", {})
+    ns, name = meta["namespace"], meta["name"]
+    forecast = None
+    for attempt in range(CONFLICT_RETRIES + 1):
+        obs = observe(rt, body, deleting=deleting, configmaps=configmaps,
+                      targets=targets, forecast=forecast)  # fmt: skip
+        forecast = obs.forecast  # a retry after 409 re-reads the HPA only
+        d = decide_safely(obs)
+        if d.hpa_patch is None:
+            break
+        try:
+            _patch(rt, ns, name, _target(body), d)
+        except Conflict:
+            metrics.ERRORS.labels("Conflict").inc()
+            if attempt == CONFLICT_RETRIES:
+                raise
+            continue
+        break
+    _report(rt, ns, name, meta.get("uid"), d, obs.status)
+    return d
+
+
+def _target(body: Mapping[str, Any]) -> str:
+    """The HPA's name, from the body itself: a policy that no longer parses still names
+    the HPA it raised (targetRef is immutable)."""
+    spec = body.get("spec")
+    ref = spec.get("targetRef") if isinstance(spec, Mapping) else None
+    name = ref.get("name") if isinstance(ref, Mapping) else None
+    if not isinstance(name, str) or not name:
+        raise ValueError("policy names no targetRef.name")
+    return name
+
+
+def _patch(rt: Runtime, ns: str, name: str, target: str, d: Decision) -> None:
+    assert d.hpa_patch is not None
+    patch_hpa(rt.api, ns, target, d.hpa_patch, timeout=rt.settings.api_timeout_seconds)
+    metrics.PATCHES.labels(ns, name).inc()
+    if os.environ.get(FAULT_ENV):
+        log.warning("%s set: killing the operator after the HPA patch", FAULT_ENV)
+        os.kill(os.getpid(), signal.SIGKILL)
+
+
+def _report(rt: Runtime, ns: str, name: str, uid: str | None, d: Decision,
+            current: Mapping[str, Any]) -> None:  # fmt: skip
+    """Events (best effort), then the status if it changed."""
+    timeout = rt.settings.api_timeout_seconds
+    for ev in d.events:
+        try:
+            policies.post_event(rt.api, ns, name, uid, ev, timeout=timeout)
+        except ApiException as e:  # an Event is best effort; the status says it all
+            log.warning("%s/%s: could not post Event %s: %s", ns, name, ev.reason, e)
+    if d.status is not None and d.status_changed:
+        policies.write_status(rt.api, ns, name, d.status, current, timeout=timeout)
+        rt.written[(ns, name)] = d.status
+
+
+def _recover(rt: Runtime, body: Mapping[str, Any], deleting: bool,
+             error: Exception) -> Decision | None:
+    """After a failed reconcile: restore the baseline from a fresh read of the HPA and
+    record why. Returns the decision carried out once the HPA is safe (restored, not
+    ours, or gone), else None. The status write is best effort: the HPA comes first."""
+    meta = body.get("metadata", {})
+    ns, name = meta["namespace"], meta["name"]
+    try:
+        try:
+            target: str | None = _target(body)
+        except ValueError:
+            target = None
+        hpa = (read_hpa(rt.api, ns, target, timeout=rt.settings.api_timeout_seconds)
+               if target else HpaState(exists=False))  # fmt: skip
+        obs = Observed(name=name, namespace=ns, policy=None, hpa=hpa,
+                       forecast=ForecastState(), now=pd.Timestamp.now(tz="UTC").floor("s"),
+                       status=rt.written.get((ns, name)) or plain(body.get("status") or {}),
+                       generation=meta.get("generation"), deleting=deleting)  # fmt: skip
+        d = fail_safe(obs, _why(error))
+        if d.hpa_patch is not None and target is not None:
+            _patch(rt, ns, name, target, d)
+    except Exception as e:
+        log.error("%s/%s: fail-safe restore failed too: %r", ns, name, e)
+        return None
+    try:
+        _report(rt, ns, name, meta.get("uid"), d, obs.status)
+    except Exception as e:
+        log.warning("%s/%s: could not record the failure in status: %r", ns, name, e)
+    return d

@@ -45,6 +45,9 @@ URL_NOT_ALLOWED, TARGET_NOT_FOUND, TARGET_CONFLICT = (
 )
 DRY_RUN, POLICY_INVALID, CAPACITY_UNKNOWN = "DryRun", "PolicyInvalid", "CapacityUnknown"
 FLOOR_APPLIED, BASELINE_RESTORED, FORECAST_OK = "FloorApplied", "BaselineRestored", "ForecastLoaded"
+#: A bug or an API failure while handling one policy (controller/failsafe.py), and the
+#: baseline read back from ``status.baseline`` after our annotations vanished.
+RECONCILE_FAILED, BASELINE_RECOVERED = "ReconcileFailed", "BaselineRecovered"
 
 
 @dataclass(frozen=True)

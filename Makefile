@@ -4,7 +4,7 @@ PYTHON ?= python3
 VENV ?= .venv
 BIN := $(VENV)/bin
 
-.PHONY: demo test unit e2e lint controlplane bench clean manifests
+.PHONY: demo test unit e2e lint controlplane prometheus bench clean manifests
 
 $(BIN)/.installed: pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -16,11 +16,11 @@ $(BIN)/.installed: pyproject.toml
 demo: $(BIN)/.installed
 	$(BIN)/floorcast demo
 
-## test: lint, build (or reuse) the control plane, run unit and e2e tests
-test: lint controlplane
+## test: lint, build (or reuse) the control plane and Prometheus, run unit and e2e tests
+test: lint controlplane prometheus
 	$(BIN)/pytest
 
-unit: $(BIN)/.installed
+unit: $(BIN)/.installed prometheus
 	$(BIN)/pytest tests
 
 e2e: controlplane
@@ -32,6 +32,11 @@ lint: $(BIN)/.installed
 ## controlplane: build etcd, kube-apiserver, kube-controller-manager, kubectl once
 controlplane: $(BIN)/.installed
 	$(BIN)/python -m e2e.controlplane build
+
+## prometheus: Debian's prometheus + promtool unpacked into the cache once (no root
+## needed while apt's package lists exist); the history-source tests run them
+prometheus: $(BIN)/.installed
+	$(BIN)/python tests/prometheus_install.py
 
 bench: $(BIN)/.installed
 	$(BIN)/python tests/perf/bench_planning.py

@@ -1,12 +1,12 @@
 """A real, throw-away Prometheus server holding known synthetic history.
 
 The Prometheus source is tested against the real thing (Debian's ``prometheus``
-package, installed by ``.ci/install-prometheus.sh``) rather than a hand-written
-stub, because the behaviour that matters (the point limit, error bodies, how a
-range query picks samples) is exactly what a stub would get wrong. History is
-backfilled with ``promtool tsdb create-blocks-from openmetrics`` into a fresh data
-directory, then a server is started on a free loopback port with no scrape targets,
-so the only data it has is ours.
+package, unpacked into the cache by ``tests/prometheus_install.py``, which ``make
+test`` runs first) rather than a hand-written stub, because the behaviour that
+matters (the point limit, error bodies, how a range query picks samples) is exactly
+what a stub would get wrong. History is backfilled with ``promtool tsdb
+create-blocks-from openmetrics`` into a fresh data directory, then a server is started
+on a free loopback port with no scrape targets, so the only data it has is ours.
 """
 
 from __future__ import annotations
@@ -14,7 +14,6 @@ from __future__ import annotations
 import contextlib
 import math
 import os
-import shutil
 import socket
 import subprocess
 import tempfile
@@ -25,7 +24,9 @@ from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
-INSTALL_HINT = "run .ci/install-prometheus.sh (installs Debian's prometheus package)"
+import prometheus_install
+
+INSTALL_HINT = "run `make prometheus` (unpacks Debian's prometheus package into the cache)"
 METRIC = "demo_load"
 SERVICES = ("storefront", "search", "reports")
 STEP_S = 60  # one sample a minute
@@ -40,11 +41,12 @@ class HarnessError(RuntimeError):
 def binaries() -> tuple[str, str]:
     """Paths of ``prometheus`` and ``promtool``; a missing one is a setup failure, never
     a skip, so CI cannot go green without having run these tests."""
-    found = {name: shutil.which(name) for name in ("prometheus", "promtool")}
-    missing = [name for name, path in found.items() if path is None]
-    if missing:
-        raise HarnessError(f"{' and '.join(missing)} not found on PATH; {INSTALL_HINT}")
-    return found["prometheus"], found["promtool"]  # type: ignore[return-value]
+    pair = prometheus_install.found()
+    if pair is None:
+        where = prometheus_install.cache_dir()
+        raise HarnessError(f"prometheus and promtool not found in {where} or on PATH; "
+                           f"{INSTALL_HINT}")  # fmt: skip
+    return pair
 
 
 def synthetic_value(service_index: int, t: int) -> float:

@@ -1,10 +1,11 @@
-"""Policy + history + HPA settings -> the three back-test scenarios (and a sweep).
+"""Policy + history + HPA settings -> the back-test scenarios, scored side by side.
 
-The glue between ``core.backtest`` / ``core.hpa_model`` and the policy: floors are
-planned with ``plans.bounds_for`` / ``plans.planning_load`` /
-``plans.policy_event_factors`` and ``core.planning.plan`` — exactly what
-``plans.plan_policy`` (and so the operator) does — but for every forecast and every
-sweep point in one vectorized call.
+Rows: the HPA alone, a static peak floor, floorcast with the policy's settings, the
+perfect-foresight oracle (reference only), each ``--sweep`` point, and the HPA alone
+at a ladder of lower targets (``core.frontier``), so the report can say what
+floorcast saves against simply lowering the target, at equal saturation. Floors
+come from ``replay_floors`` (the operator's planning rule, for every forecast and
+row in one call) and every row goes through one vectorized ``hpa_model.simulate``.
 """
 
 from __future__ import annotations
@@ -19,16 +20,24 @@ import pandas as pd
 
 from floorcast import plans
 from floorcast.core import backtest as bt
-from floorcast.core import hpa_model, planning
+from floorcast.core import frontier, hpa_model, planning
 from floorcast.core.series import Series
 from floorcast.errors import InputError
 from floorcast.policy import PolicySpec
+from floorcast.replay_floors import Knobs, floors, plan_step_for
+
+__all__ = ["PHASES", "Knobs", "Result", "Setup", "run"]
 
 Progress = Callable[[str], None]
+#: Turns the rolling forecasts into the ones floors are planned from. The plug-in
+#: point for a live correction: it sees each forecast's time and may use history
+#: strictly before it (``--cadence`` sets how often a forecast is re-made).
+Adjust = Callable[[bt.Rolling, Series], bt.Rolling]
 #: How many times ``run`` reports progress (one call as each phase starts).
 PHASES = 3
 _DAY = pd.Timedelta(days=1)
 _FIVE_MIN = pd.Timedelta(minutes=5)
+_SYNC = pd.Timedelta(seconds=hpa_model.DEFAULT_SYNC_SECONDS)
 
 
 @dataclass(frozen=True)
@@ -51,6 +60,11 @@ class Setup:
     forecast_step: pd.Timedelta = _FIVE_MIN
     start: pd.Timestamp | None = None
     end: pd.Timestamp | None = None
+    #: Grid the need is planned on; default the HPA's sync (``planning.refine``).
+    plan_step: pd.Timedelta | None = None
+    #: HPA-alone ladder targets (fractions); default base target down to 10 %.
+    ladder: tuple[float, ...] | None = None
+    adjust: Adjust | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -71,6 +85,13 @@ class Result:
     pod_startup: timedelta
     per_replica: float = 1.0
     sweep: list[dict[str, Any]] = field(default_factory=list)
+    target: float = 0.8  # the HPA's base target
+    targets: np.ndarray = field(default_factory=lambda: np.zeros(0))  # (B,) per row
+    #: HPA alone at each ladder target, highest first: {target_utilization, metrics}.
+    ladder: list[dict[str, Any]] = field(default_factory=list)
+    #: Per floorcast-like row name: the equal-saturation HPA alone and the saving.
+    tuned: dict[str, dict[str, Any]] = field(default_factory=dict)
+    plan_step: pd.Timedelta = _SYNC
 
     def row(self, name: str) -> int:
         return self.names.index(name)
@@ -81,20 +102,17 @@ def run(
     history: Series,
     setup: Setup,
     *,
-    sweep: Sequence[tuple[timedelta, float]] = (),
+    sweep: Sequence[Knobs | tuple[timedelta, float]] = (),
     progress: Progress | None = None,
 ) -> Result:
     """Replay ``history`` for the policy; ``sweep`` adds one floorcast row per
-    (leadTime, headroom) pair. Pods take ``pod_startup`` to serve in every row: the
-    swept leadTime is the planner's, the workload's start-up time is a fact."""
+    configuration ((leadTime, headroom) pairs keep the policy's hold and the base
+    target). Pods take ``pod_startup`` to serve in every row: the swept leadTime is
+    the planner's, the workload's start-up time is a fact."""
     say = progress or (lambda _msg: None)
     sync = pd.Timedelta(seconds=hpa_model.DEFAULT_SYNC_SECONDS)
-    if setup.per_replica <= 0:
-        raise InputError(f"per-replica capacity must be > 0, got {setup.per_replica}")
-    if not 0 < setup.target_utilization <= 10:
-        raise InputError(
-            f"target utilization must be in (0, 1000] %, got {setup.target_utilization:.0%}"
-        )
+    _check(setup)
+    base = setup.target_utilization
     bounds = plans.bounds_for(spec, baseline=setup.baseline, hpa_max=setup.hpa_max)
     startup = setup.pod_startup if setup.pod_startup is not None else spec.lead_time
     fstep = max(setup.forecast_step, history.step)
@@ -107,8 +125,11 @@ def run(
         if setup.end is None
         else min(setup.end, history.end + history.step)
     )
-    grid = [(spec.lead_time, spec.headroom), *sweep]
-    max_lead = max(pd.Timedelta(g[0]) for g in grid)
+    own = Knobs(spec.lead_time, spec.headroom, spec.hold_time, base)
+    grid = [own, *(k if isinstance(k, Knobs) else Knobs(k[0], k[1], spec.hold_time, base)
+                   for k in sweep)]  # fmt: skip
+    oracle_knobs = Knobs(startup, 0.0, timedelta(0), base)
+    max_lead = max(pd.Timedelta(g.lead) for g in [*grid, oracle_knobs])
     horizon = setup.cadence + max_lead + 2 * fstep
     say(f"forecasting {len(times)} times ({setup.method})")
     events = [(e.start, e.end) for e in spec.planned_events]
@@ -122,11 +143,20 @@ def run(
         season=setup.season,
         event_windows=[w for w in events if w[0] < end] or None,
     )
+    if setup.adjust is not None:
+        rolling = setup.adjust(rolling, history)
     say("planning floors")
-    floors = _floors(spec, rolling, grid, bounds, setup.per_replica)
+    want = setup.plan_step if setup.plan_step is not None else sync
+    pstep = plan_step_for(fstep, want)
+    kw = {"per_replica": setup.per_replica, "base_target": base}
+    fc = floors(spec, rolling, grid, bounds, plan_step=pstep, **kw)
+    orc = bt.oracle_forecasts(history, times, horizon=horizon)
+    o_step = plan_step_for(orc.step, want)
+    of = floors(spec, orc, [oracle_knobs], bounds, plan_step=o_step, oracle=True, **kw)
     demand = bt.sim_demand(history, start, end, sync)
     n = len(demand)
-    floor_rows = bt.assemble_floors(start, sync, n, times, rolling.step, floors)
+    fc_rows = bt.assemble_floors(start, sync, n, times, pstep, fc)
+    or_rows = bt.assemble_floors(start, sync, n, times, o_step, of)
     # The common manual fix: one static minReplicas sized for the window's peak with
     # the policy's headroom. It knows the peak in advance (an oracle), so it is the
     # best a static floor can do for capacity, and shows what that costs.
@@ -135,27 +165,41 @@ def run(
         planning.required_replicas(np.array([[peak]]), setup.per_replica, spec.headroom)[0, 0]
     )
     static = int(np.clip(static, bounds.lower, bounds.ceiling))
-    mins = np.vstack([np.full((1, n), bounds.baseline), np.full((1, n), static), floor_rows])
-    names = ("reactive", "static_peak", "floorcast", *[f"sweep{i}" for i in range(len(sweep))])
+    rungs = frontier.ladder(base, top=max(g.target for g in grid), targets=setup.ladder)
+    extra = [t for t in rungs if t != round(base, 6)]
+    flat = np.full((1 + len(extra), n), bounds.baseline)
+    mins = np.vstack([flat[:1], np.full((1, n), static), fc_rows[:1], or_rows, fc_rows[1:],
+                      flat[1:]])  # fmt: skip
+    names = ("reactive", "static_peak", "floorcast", "oracle",
+             *[f"sweep{i}" for i in range(len(grid) - 1)],
+             *[f"hpa@{t:g}" for t in extra])  # fmt: skip
+    targets = np.array([base, base, base, base, *[g.target for g in grid[1:]], *extra])
     say(f"simulating {len(names)} scenarios over {n} HPA syncs")
     hpa = hpa_model.HpaConfig(
         max_replicas=max(setup.hpa_max, setup.baseline),
-        target_utilization=setup.target_utilization,
+        target_utilization=base,
         scale_up=setup.scale_up,
         scale_down=setup.scale_down,
     )
     delay = planning.window_steps(pd.Timedelta(startup), sync)
+    # core.frontier: a row at target u' is the base row's demand scaled by u / u'.
+    dem = demand[None, :] * frontier.demand_scale(base, targets)[:, None]
     trace = hpa_model.simulate(
-        demand, mins, per_replica=setup.per_replica, hpa=hpa, ready_delay_steps=delay
+        dem, mins, per_replica=setup.per_replica, hpa=hpa, ready_delay_steps=delay
     )
-    scores = bt.metrics(
-        trace, demand, per_replica=setup.per_replica, target=setup.target_utilization, sync=sync
-    )
+    scores = bt.metrics(trace, dem, per_replica=setup.per_replica, target=targets, sync=sync)
     err = bt.forecast_error(rolling, history, end)
+    lad = _ladder(rungs, base, names, scores)
+    tuned = {
+        name: _tuned(scores[names.index(name)], lad)
+        for name in ("floorcast", "oracle", *[f"sweep{i}" for i in range(len(grid) - 1)])
+    }
     table = [
-        {"leadTime": pd.Timedelta(lead), "headroom": float(head), **scores[3 + i]}
-        for i, (lead, head) in enumerate(sweep)
-    ]
+        {"leadTime": pd.Timedelta(k.lead), "headroom": float(k.headroom),
+         "holdTime": pd.Timedelta(k.hold), "target_utilization": float(k.target),
+         **scores[4 + i], **_saving(tuned[f"sweep{i}"])}
+        for i, k in enumerate(grid[1:])
+    ]  # fmt: skip
     return Result(
         start=start,
         end=end,
@@ -171,51 +215,50 @@ def run(
         pod_startup=startup,
         per_replica=setup.per_replica,
         sweep=table,
+        target=base,
+        targets=targets,
+        ladder=lad,
+        tuned=tuned,
+        plan_step=pstep,
     )
 
 
-def _floors(
-    spec: PolicySpec,
-    rolling: bt.Rolling,
-    grid: Sequence[tuple[timedelta, float]],
-    bounds: plans.Bounds,
-    per_replica: float,
-) -> np.ndarray:
-    """(J, G, H) floors: every forecast × every (leadTime, headroom), one planner call.
-
-    The load is the band the policy plans on and the event factors are the policy's,
-    both through ``plans``; rows are index-based in the planner, so forecasts made at
-    different times can share one call.
-    """
-    j_n, h = rolling.point.shape
-    g_n = len(grid)
-    sized = [
-        plans.planning_load(
-            spec,
-            Series(start=t, step=rolling.step, values=p, lower=p, upper=u),
+def _check(setup: Setup) -> None:
+    if setup.per_replica <= 0:
+        raise InputError(f"per-replica capacity must be > 0, got {setup.per_replica}")
+    if not 0 < setup.target_utilization <= 10:
+        raise InputError(
+            f"target utilization must be in (0, 1000] %, got {setup.target_utilization:.0%}"
         )
-        for t, p, u in zip(rolling.times, rolling.point, rolling.upper, strict=True)
-    ]
-    load = np.repeat(np.stack(sized), g_n, axis=0)  # (J*G, H), forecast-major
-    factors = np.stack(
-        [
-            plans.policy_event_factors(spec, pd.date_range(t, periods=h, freq=rolling.step))
-            for t in rolling.times
-        ]
+    if setup.plan_step is not None and setup.plan_step <= pd.Timedelta(0):
+        raise InputError(f"planning step must be > 0, got {setup.plan_step}")
+
+
+def _ladder(
+    rungs: list[float], base: float, names: tuple[str, ...], scores: list[dict[str, Any]]
+) -> list[dict[str, Any]]:
+    """The HPA alone at each rung, highest target first; the base rung is ``reactive``."""
+    out = []
+    for t in rungs:
+        name = "reactive" if t == round(base, 6) else f"hpa@{t:g}"
+        out.append({"target_utilization": t, **scores[names.index(name)]})
+    return out
+
+
+def _tuned(score: dict[str, Any], lad: list[dict[str, Any]]) -> dict[str, Any]:
+    """The HPA alone tuned to saturate as little as this row, and the row's saving."""
+    point = frontier.equal_saturation(
+        [x["target_utilization"] for x in lad],
+        [x["under_capacity_minutes"] for x in lad],
+        [x["replica_hours"] for x in lad],
+        score["under_capacity_minutes"],
     )
-    factors = np.repeat(factors, g_n, axis=0)
-    heads = np.tile([float(g[1]) for g in grid], j_n)
-    leads = [pd.Timedelta(g[0]) for g in grid] * j_n
-    sched = planning.plan(
-        rolling.times[0],
-        rolling.step,
-        load,
-        per_replica=per_replica,
-        headroom=heads,
-        lead=leads,
-        hold=pd.Timedelta(spec.hold_time),
-        lower=bounds.lower,
-        ceiling=bounds.ceiling,
-        event_factor=factors,
-    )
-    return sched.floor.reshape(j_n, g_n, h)
+    return {"hpa": point, "saving": frontier.saving(score["replica_hours"], point)}
+
+
+def _saving(t: dict[str, Any]) -> dict[str, Any]:
+    return {
+        "saving_at_equal_saturation": t["saving"],
+        "equal_saturation_target": t["hpa"]["target_utilization"],
+        "equal_saturation_found": t["hpa"]["found"],
+    }

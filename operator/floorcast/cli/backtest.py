@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 import click
+import numpy as np
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
@@ -30,15 +31,28 @@ from floorcast.timefmt import iso, parse_rfc3339
 #: How `backtest` fills short gaps in recorded history (see run()).
 REPLAY_GAP_FILL = "ffill"
 HELP = "Replay history through the reactive HPA, with and without floors."
+ORACLE_LABEL = "perfect foresight (reference only: plans on the load that really followed)"
 KEYS = ("under_capacity_minutes", "over_target_minutes", "replica_hours",
         "peak_utilization", "scale_events")  # fmt: skip
 
 
-def parse_sweep(
-    items: tuple[str, ...], lead: timedelta, headroom: float
-) -> list[tuple[timedelta, float]]:
-    """``leadTime=2m,5m headroom=0,0.1`` -> the grid's (lead, headroom) pairs."""
-    leads, heads = [lead], [headroom]
+SWEEP_KEYS = ("leadTime", "headroom", "holdTime", "targetUtilization")
+
+
+def _numbers(key: str, vals: str, parts: list[str], *, lo: float, lo_open: bool) -> list[float]:
+    try:
+        out = [float(v) for v in parts]
+    except ValueError:
+        raise InputError(f"--sweep {key}: not a number in {vals!r}") from None
+    if any(not np.isfinite(x) or x < lo or (lo_open and x == lo) for x in out):
+        raise InputError(f"--sweep {key}: values must be {'>' if lo_open else '>='} {lo:g}")
+    return out
+
+
+def parse_sweep(items: tuple[str, ...], own: replay.Knobs) -> list[replay.Knobs]:
+    """``leadTime=2m,5m headroom=0,0.1 holdTime=0,15m targetUtilization=70,85`` -> the
+    grid's configurations (every combination; unswept settings keep ``own``'s)."""
+    leads, heads, holds, targets = [own.lead], [own.headroom], [own.hold], [own.target]
     for item in items:
         key, _, vals = item.partition("=")
         parts = [v for v in vals.split(",") if v]
@@ -46,16 +60,32 @@ def parse_sweep(
             raise InputError(f"--sweep {item!r}: expected NAME=V1,V2,...")
         if key == "leadTime":
             leads = [parse_duration(v, field="--sweep leadTime") for v in parts]
+        elif key == "holdTime":
+            holds = [timedelta(0) if v == "0" else parse_duration(v, field="--sweep holdTime")
+                     for v in parts]  # fmt: skip
         elif key == "headroom":
-            try:
-                heads = [float(v) for v in parts]
-            except ValueError:
-                raise InputError(f"--sweep headroom: not a number in {vals!r}") from None
-            if any(h < 0 for h in heads):
-                raise InputError("--sweep headroom: values must be >= 0")
+            heads = _numbers(key, vals, parts, lo=0.0, lo_open=False)
+        elif key == "targetUtilization":  # percent, like --target-utilization
+            pcts = _numbers(key, vals, parts, lo=0.0, lo_open=True)
+            if any(p > 1000 for p in pcts):
+                raise InputError("--sweep targetUtilization: values must be <= 1000 (percent)")
+            targets = [p / 100.0 for p in pcts]
         else:
-            raise InputError(f"--sweep: unknown setting {key!r} (use leadTime or headroom)")
-    return [(ld, h) for ld in leads for h in heads]
+            raise InputError(f"--sweep: unknown setting {key!r} (use {', '.join(SWEEP_KEYS)})")
+    return [replay.Knobs(ld, h, hd, t)
+            for ld in leads for h in heads for hd in holds for t in targets]  # fmt: skip
+
+
+def parse_ladder(text: str) -> tuple[float, ...]:
+    """``--ladder 70,60,50,40`` (percent) -> target fractions for the HPA alone."""
+    parts = [v.strip() for v in text.split(",") if v.strip()]
+    try:
+        pcts = [float(v) for v in parts]
+    except ValueError:
+        raise InputError(f"--ladder: not a number in {text!r}") from None
+    if not pcts or any(not np.isfinite(p) or not 0 < p <= 1000 for p in pcts):
+        raise InputError(f"--ladder: expected percentages in (0, 1000], got {text!r}")
+    return tuple(p / 100.0 for p in pcts)
 
 
 def _summary(r: replay.Result) -> dict[str, Any]:
@@ -71,12 +101,37 @@ def _summary(r: replay.Result) -> dict[str, Any]:
     for name in ("reactive", "static_peak", "floorcast"):
         doc[name] = r.scores[r.row(name)]
     doc["floorcast"] = {**doc["floorcast"], "forecast_error": r.forecast_error}
+    doc["plan_step_seconds"] = r.plan_step.total_seconds()
+    doc.update(tuned_summary(r))
     if r.sweep:
         doc["sweep"] = [
-            {**row, "leadTime": format_duration(row["leadTime"].to_pytimedelta())}
+            {**row, "leadTime": format_duration(row["leadTime"].to_pytimedelta()),
+             "holdTime": format_duration(row["holdTime"].to_pytimedelta())}
             for row in r.sweep
-        ]
+        ]  # fmt: skip
     return doc
+
+
+def tuned_summary(r: replay.Result) -> dict[str, Any]:
+    """The comparison with the obvious alternative (docs/backtest.md names each key)."""
+    fc, orc = r.tuned["floorcast"], r.tuned["oracle"]
+    cap = None
+    if fc["saving"] is not None and orc["saving"] is not None and orc["saving"] > 0:
+        cap = fc["saving"] / orc["saving"]
+    return {
+        "tuned_hpa": {
+            **fc["hpa"],
+            "ladder": [{k: x[k] for k in ("target_utilization", *KEYS)} for x in r.ladder],
+        },
+        "saving_at_equal_saturation": fc["saving"],
+        "oracle": {
+            "label": ORACLE_LABEL,
+            **r.scores[r.row("oracle")],
+            "tuned_hpa": orc["hpa"],
+            "saving_at_equal_saturation": orc["saving"],
+        },
+        "oracle_capture": cap,
+    }
 
 
 @click.command("backtest", help=HELP)
@@ -100,7 +155,16 @@ def _summary(r: replay.Result) -> dict[str, Any]:
 @click.option("--cadence", default="24h", show_default=True, help="Re-forecast every.")
 @click.option("--start", default=None, help="RFC 3339 start of the replay.")
 @click.option("--end", default=None, help="RFC 3339 end of the replay.")
-@click.option("--sweep", multiple=True, help="e.g. leadTime=2m,5m,10m headroom=0,0.1,0.2")
+@click.option(
+    "--sweep",
+    multiple=True,
+    help="e.g. leadTime=2m,5m headroom=0,0.1 holdTime=0,15m targetUtilization=70,85",
+)
+@click.option(
+    "--ladder",
+    default=None,
+    help="HPA-alone targets in percent, e.g. 70,60,50,40 [target down to 10 in 5s].",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
 @click.option(
     "--report", default=None, type=click.Path(path_type=Path), help="Write an HTML report."
@@ -109,8 +173,8 @@ def _summary(r: replay.Result) -> dict[str, Any]:
 def backtest(policy_file: Path, history: Path, hpa_file: Path | None, baseline: int | None,
              hpa_max: int | None, target_utilization: float | None, per_replica: float | None,
              pod_startup: str | None, forecast_method: str, cadence: str, start: str | None,
-             end: str | None, sweep: tuple[str, ...], as_json: bool, report: Path | None,
-             extra: tuple[str, ...]) -> None:  # fmt: skip
+             end: str | None, sweep: tuple[str, ...], ladder: str | None, as_json: bool,
+             report: Path | None, extra: tuple[str, ...]) -> None:  # fmt: skip
     policy = load_policy_file(policy_file)
     spec = policy.spec
     hpa = load_hpa_file(hpa_file) if hpa_file is not None else None
@@ -138,9 +202,11 @@ def backtest(policy_file: Path, history: Path, hpa_file: Path | None, baseline: 
         cadence=parse_duration(cadence, field="--cadence"),
         start=parse_rfc3339(start, field="--start") if start else None,
         end=parse_rfc3339(end, field="--end") if end else None,
+        ladder=parse_ladder(ladder) if ladder is not None else None,
         **kw,
     )
-    grid = parse_sweep(sweep_items, spec.lead_time, spec.headroom) if sweep_items else []
+    own = replay.Knobs(spec.lead_time, spec.headroom, spec.hold_time, target)
+    grid = parse_sweep(sweep_items, own) if sweep_items else []
     # Forward-fill short gaps, never interpolate: a straight line across a gap that
     # straddles a forecast origin would read a sample recorded after that origin (a
     # look-ahead); the last value seen is all a live forecaster would have had.
@@ -184,8 +250,9 @@ def print_summary(r: replay.Result, name: str, target: float, console: Console) 
     t = Table("scenario", "under capacity (min)", "over target (min)", "replica-hours",
               "peak util.", "scale events")  # fmt: skip
     labels = {"reactive": "HPA alone", "static_peak": f"static floor {r.static_floor}",
-              "floorcast": "HPA + floorcast"}  # fmt: skip
-    for key in ("reactive", "static_peak", "floorcast"):
+              "floorcast": "HPA + floorcast",
+              "oracle": "oracle: perfect foresight (reference only)"}  # fmt: skip
+    for key in ("reactive", "static_peak", "floorcast", "oracle"):
         s = r.scores[r.row(key)]
         t.add_row(
             labels[key],
@@ -196,6 +263,7 @@ def print_summary(r: replay.Result, name: str, target: float, console: Console) 
             str(s["scale_events"]),
         )
     console.print(t)
+    console.print(equal_saturation_line(r))
     e = r.forecast_error
     if e.get("mae") is not None:
         mase = f"{e['mase']:.2f}" if e["mase"] is not None else "n/a"
@@ -204,13 +272,41 @@ def print_summary(r: replay.Result, name: str, target: float, console: Console) 
             f"MASE {mase}, actual within upper band {e['upper_coverage']:.0%}"
         )
     if r.sweep:
-        base = r.scores[r.row("reactive")]
         title = f"trade-off (pods start in {format_duration(r.pod_startup)} in every row)"
-        st = Table("leadTime", "headroom", "under capacity (min)", "replica-hours",
-                   "vs HPA alone", title=title)  # fmt: skip
+        st = Table("leadTime", "holdTime", "headroom", "HPA target", "under capacity (min)",
+                   "replica-hours", "saving at equal saturation", title=title)  # fmt: skip
         for row in r.sweep:
-            extra = row["replica_hours"] - base["replica_hours"]
-            st.add_row(format_duration(row["leadTime"].to_pytimedelta()), f"{row['headroom']:g}",
+            st.add_row(format_duration(row["leadTime"].to_pytimedelta()),
+                       format_duration(row["holdTime"].to_pytimedelta()), f"{row['headroom']:g}",
+                       f"{row['target_utilization']:.0%}",
                        f"{row['under_capacity_minutes']:.1f}", f"{row['replica_hours']:.1f}",
-                       f"{extra:+.1f} h")  # fmt: skip
+                       _pct(row["saving_at_equal_saturation"],
+                            row["equal_saturation_found"]))  # fmt: skip
         console.print(st)
+
+
+def _pct(x: float | None, found: str) -> str:
+    if x is None:
+        return "n/a"
+    # Beyond the ladder the HPA alone was tuned as far as it goes and still saturated
+    # more: the true saving is at least this.
+    return f"{'≥ ' if found == 'beyond_ladder' else ''}{x:+.0%}"
+
+
+def equal_saturation_line(r: replay.Result) -> str:
+    """One sentence: what lowering the HPA's target instead would have cost."""
+    doc = tuned_summary(r)
+    hpa = doc["tuned_hpa"]
+    how = {
+        "interpolated": f"at target {hpa['target_utilization']:.0%}",
+        "top": f"already at target {hpa['target_utilization']:.0%}",
+        "beyond_ladder": f"not even at {hpa['target_utilization']:.0%} (its lowest rung)",
+    }[hpa["found"]]
+    cap, orc = doc["oracle_capture"], doc["oracle"]
+    return (
+        f"HPA alone saturates as little as floorcast {how}: {hpa['replica_hours']:.1f} "
+        f"replica-hours; floorcast saves "
+        f"{_pct(doc['saving_at_equal_saturation'], hpa['found'])} at equal saturation "
+        f"(oracle {_pct(orc['saving_at_equal_saturation'], orc['tuned_hpa']['found'])}"
+        f", captured {'n/a' if cap is None else f'{cap:.0%}'})"
+    )

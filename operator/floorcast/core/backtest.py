@@ -82,6 +82,8 @@ class Rolling:
     method: tuple[str, ...]
     season: np.ndarray  # (J,) steps
     train: list[np.ndarray]  # each forecast's training values (for MASE)
+    #: Each point is the mean of the step it labels (resampled), not a sample.
+    centred: bool = False
 
 
 def rolling_forecasts(
@@ -124,6 +126,32 @@ def rolling_forecasts(
         method=bf.method,
         season=np.asarray(bf.season),
         train=[np.asarray(r.values) for r in rows],
+        centred=step > history.step,
+    )
+
+
+def oracle_forecasts(history: Series, times: pd.DatetimeIndex, *, horizon: pd.Timedelta) -> Rolling:
+    """Perfect foresight: each "forecast" is the load that really followed its time,
+    on the recording's own step (no averaging that would hide a peak).
+
+    For reference only — no forecaster can see the future — it shows what the
+    planner itself can reach, and a live correction or a better forecaster can be
+    measured by the share of the oracle's saving it captures. Instants past the
+    last sample keep its value, as ``sim_demand`` does.
+    """
+    step = history.step
+    h = int(np.ceil(horizon / step - 1e-9))
+    first = ((times - history.start) // step).to_numpy(dtype=np.int64)
+    idx = np.clip(first[:, None] + np.arange(h)[None, :], 0, len(history) - 1)
+    actual = np.asarray(history.values, dtype=np.float64)[idx]
+    return Rolling(
+        times=times,
+        step=step,
+        point=actual,
+        upper=actual,
+        method=("oracle",) * len(times),
+        season=np.zeros(len(times), dtype=np.int64),
+        train=[],
     )
 
 
@@ -192,30 +220,33 @@ def metrics(
     demand: np.ndarray,
     *,
     per_replica: float,
-    target: float,
+    target: float | np.ndarray,
     sync: pd.Timedelta,
 ) -> list[dict[str, Any]]:
     """The figures the CLI contract names, per row of the trace.
 
     Capacity at 100 % of a ready pod is per_replica / target (per_replica is what it
-    carries at the target). ``replica_hours`` counts every existing pod, ready or
-    not: a starting pod already holds its node reservation and costs the same.
+    carries at the target); ``under_capacity_minutes`` — saturation — counts the
+    minutes whose demand is above that capacity of the ready pods. ``replica_hours``
+    counts every existing pod, ready or not: a starting pod already holds its node
+    reservation and costs the same. ``demand`` may be (T,) or one row per trace row
+    and ``target`` one per row (``core.frontier`` explains why a row at another target
+    is its demand scaled by the target ratio).
     """
     dt_min = pd.Timedelta(sync).total_seconds() / 60.0
     ready = trace.ready.astype(np.float64)
     dem = np.broadcast_to(np.asarray(demand, dtype=np.float64), ready.shape)
+    tgt = np.broadcast_to(np.asarray(target, dtype=np.float64), (ready.shape[0],))[:, None]
     with np.errstate(divide="ignore", invalid="ignore"):
-        util = np.where(
-            ready > 0, target * dem / (ready * per_replica), np.where(dem > 0, np.inf, 0)
-        )
+        util = np.where(ready > 0, tgt * dem / (ready * per_replica), np.where(dem > 0, np.inf, 0))
+    under = dem > ready * per_replica / tgt
+    over = util > tgt
     out = []
     for b in range(ready.shape[0]):
         out.append(
             {
-                "under_capacity_minutes": float(
-                    np.sum(dem[b] > ready[b] * per_replica / target) * dt_min
-                ),
-                "over_target_minutes": float(np.sum(util[b] > target) * dt_min),
+                "under_capacity_minutes": float(np.sum(under[b]) * dt_min),
+                "over_target_minutes": float(np.sum(over[b]) * dt_min),
                 "replica_hours": float(trace.replicas[b].sum() * dt_min / 60.0),
                 "peak_utilization": float(util[b].max()) if util.shape[1] else 0.0,
                 "scale_events": int(trace.scaled[b].sum()),

@@ -309,3 +309,33 @@ def _window_steps_many(
 
 def _iso(t: pd.Timestamp) -> str:
     return pd.Timestamp(t).tz_convert("UTC").strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def refine(
+    load: np.ndarray, step: pd.Timedelta, fine: pd.Timedelta, *, centred: bool = False
+) -> np.ndarray:
+    """A (W, H) forecast on ``step`` read at the finer ``fine`` grid (H · step / fine
+    points from the same start), by straight lines between the forecast's points.
+
+    Why: the need is planned per grid step, but the load ramps between forecast
+    points. Planned at whole forecast steps, a rise inside one step is covered only
+    from the step after it, up to half a step late when the lead time is shorter
+    than the step; on the grid the HPA acts on, the lead window starts exactly a
+    lead before each instant's need. ``centred`` says each point is the mean of the
+    step it labels (a resampled forecast), so it is placed at the step's middle;
+    otherwise at its start (a sample). Beyond the first/last point the value is held.
+    """
+    load = np.atleast_2d(np.asarray(load, dtype=np.float64))
+    ratio = pd.Timedelta(step) / pd.Timedelta(fine)
+    k = round(ratio)
+    if k < 1 or abs(ratio - k) > 1e-9:
+        raise PlanningError(f"planning step {fine} must divide the forecast step {step}")
+    if k == 1:
+        return load.copy()
+    h = load.shape[1]
+    pos = np.arange(h * k, dtype=np.float64) / k - (0.5 - 0.5 / k if centred else 0.0)
+    pos = np.clip(pos, 0.0, h - 1)
+    i = np.minimum(np.floor(pos).astype(np.int64), max(h - 2, 0))
+    w = pos - i
+    j = np.minimum(i + 1, h - 1)
+    return load[:, i] * (1.0 - w) + load[:, j] * w

@@ -26,6 +26,10 @@ import pandas as pd
 #: 1e-9 is far above float64 rounding (~1e-16 relative) and far below any real need
 #: increment (a millionth of a replica at a thousand replicas is still 1e-9).
 CEIL_REL_EPS = 1e-9
+#: Needs saturate here before the int32 cast (a cast of 1e12 or inf wraps or is
+#: undefined); every ceiling is an HPA replica count, itself an int32, so saturating
+#: and then clamping to the ceiling is clamping to the ceiling.
+INT32_MAX = np.iinfo(np.int32).max
 
 
 class PlanningError(ValueError):
@@ -36,7 +40,8 @@ def ceil_replicas(need: np.ndarray) -> np.ndarray:
     """``ceil`` that forgives float representation error (see ``CEIL_REL_EPS``)."""
     need = np.asarray(need, dtype=np.float64)
     # int32: a replica count never needs more, and half the memory traffic of int64.
-    return np.ceil(need - np.abs(need) * CEIL_REL_EPS).astype(np.int32)
+    need = np.ceil(need - np.abs(need) * CEIL_REL_EPS)
+    return np.nan_to_num(np.minimum(need, INT32_MAX), nan=INT32_MAX).astype(np.int32)
 
 
 def required_replicas(
@@ -63,6 +68,8 @@ def required_replicas(
     if not (np.isscalar(event_factor) and event_factor == 1.0):
         need *= event_factor
     np.ceil(need, out=need)
+    np.minimum(need, INT32_MAX, out=need)  # NaN (0 × inf) stays NaN: saturate it too
+    need[np.isnan(need)] = INT32_MAX
     return need.astype(np.int32)
 
 
@@ -108,6 +115,10 @@ def sliding_max(values: np.ndarray, behind: int, ahead: int) -> np.ndarray:
     w = behind + ahead + 1
     if w == 1 or n == 0:
         return values.copy()
+    # A window wider than the series sees the whole series: same result, and the
+    # work and memory stay bounded by its length whatever the lead and hold.
+    behind, ahead = min(behind, n - 1), min(ahead, n - 1)
+    w = behind + ahead + 1
     fill = np.iinfo(values.dtype).min if values.dtype.kind in "iu" else -np.inf
     m = np.full((n_rows, n + w - 1), fill, dtype=values.dtype)
     m[:, behind : behind + n] = values

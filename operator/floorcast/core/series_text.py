@@ -39,6 +39,30 @@ _TS_ONE, _TS_RUN = re.compile(_TS), re.compile(rf"(?:{_TS}\n)*{_TS}")  # run: on
 _NAIVE = re.compile(r"\d{4}-\d{2}-\d{2}(?:[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?)?")
 _POINT_KEYS = frozenset({"t", "value", "lower", "upper"})
 _TOP_KEYS = frozenset({"unit", "step", "generated", "points", "meta"})
+#: Forecast size limits (docs/operations.md, "Forecast limits"). A forecast is planned
+#: point by point, so its length bounds the operator's work and memory per policy;
+#: 100 000 points is 347 days at 5 minutes. Nesting is bounded before ``json.loads``
+#: ever recurses (Python's parser raises RecursionError near 1000 levels), and a step
+#: longer than a year can only be a typo that would push the grid past pandas' range.
+MAX_FORECAST_POINTS = 100_000
+MAX_JSON_DEPTH = 32
+MAX_STEP = pd.Timedelta(days=366)
+_JSON_STRING = re.compile(r'"(?:[^"\\\n]|\\.)*"')
+
+
+def _json_depth(text: str) -> tuple[int, int]:
+    """(deepest nesting of ``[``/``{``, 1-based line where it first goes past
+    MAX_JSON_DEPTH or 0), in a few vectorized passes; strings are blanked first so a
+    bracket inside a string does not count."""
+    blank = _JSON_STRING.sub('""', text).encode("utf-8", "replace")
+    b = np.frombuffer(blank, dtype=np.uint8)
+    step = np.isin(b, (0x5B, 0x7B)).astype(np.int32) - np.isin(b, (0x5D, 0x7D))
+    depth = np.cumsum(step)
+    if depth.size == 0:
+        return 0, 0
+    deep = _first(depth > MAX_JSON_DEPTH)
+    line = int(np.count_nonzero(b[:deep] == 0x0A)) + 1 if deep >= 0 else 0
+    return int(depth.max()), line
 _CORE, _BANDS = ["timestamp", "value"], ["lower", "upper"]
 
 # ------------------------------------------------------------------------ typed columns
@@ -183,12 +207,18 @@ def _read_json(text: str, source: str) -> dict[str, Any]:
     def at(i: int, msg: str) -> SeriesError:
         return SeriesError(msg, source=source, row=i, kind="point")
 
+    deepest, line = _json_depth(text)
+    if line:
+        raise SeriesError(f"JSON nested deeper than {MAX_JSON_DEPTH} levels", source=source,
+                          row=line, kind="line")  # fmt: skip
     try:
         doc = json.loads(text)
     except json.JSONDecodeError as e:
         raise SeriesError(
             f"invalid JSON: {e.msg} (column {e.colno})", source=source, row=e.lineno, kind="line"
         ) from None
+    except RecursionError:  # cannot happen below MAX_JSON_DEPTH; kept as a last guard
+        raise SeriesError(f"JSON nested {deepest} levels deep", source=source) from None
     if not isinstance(doc, dict):
         raise top("expected a JSON object with a 'points' list")
     unknown = sorted(set(doc) - _TOP_KEYS)  # a typo such as "genrated" must not vanish
@@ -206,7 +236,7 @@ def _read_json(text: str, source: str) -> dict[str, Any]:
     step = None
     if doc.get("step") is not None:
         try:
-            step = pd.Timedelta(parse_duration(doc["step"], field="'step'"))
+            step = pd.Timedelta(parse_duration(doc["step"], field="'step'", maximum=MAX_STEP))
         except InputError as e:
             raise top(e.problem) from None
     if doc.get("generated") is not None:
@@ -265,6 +295,9 @@ def _parse(
     if fmt == "json" and not text.strip():
         raise SeriesError("empty input; expected a JSON object", source=source, row=1, kind="line")
     raw = _read_csv(text, source, forecast) if fmt == "csv" else _read_json(text, source)
+    if forecast and len(raw["t"]) > MAX_FORECAST_POINTS:
+        raise SeriesError(f"{len(raw['t'])} points, over the limit of {MAX_FORECAST_POINTS} "
+                          "for a forecast", source=source)  # fmt: skip
     times, problem = _times(raw["t"])
     found, cols = [problem], {}
     for name in ("value", "lower", "upper") if raw["lower"] is not None else ("value",):

@@ -32,8 +32,7 @@ from floorcast.controller.state import (
     URL_NOT_ALLOWED,
     ForecastState,
 )
-from floorcast.core.series_text import parse_forecast
-from floorcast.errors import InputError
+from floorcast.sources.configmap import parse_state
 
 
 class _NoRedirect(urllib.request.HTTPRedirectHandler):
@@ -149,8 +148,6 @@ def _read(resp: Any, cap: int, deadline: float) -> bytes:
 def _parse(body: bytes, shown: str, cap: int) -> ForecastState:
     try:
         text = body.decode("utf-8-sig")
-        return ForecastState(series=parse_forecast(text, source=shown, max_bytes=cap))
     except UnicodeDecodeError:
         return ForecastState(reason=FORECAST_INVALID, message=f"{shown}: not UTF-8 text")
-    except InputError as e:
-        return ForecastState(reason=FORECAST_INVALID, message=str(e))
+    return parse_state(text, shown, cap)

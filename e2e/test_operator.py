@@ -1,6 +1,6 @@
 """The operator on the real control plane: raise, dry-run, delete, fall back, adopt, refuse.
 
-Expected floors from DESIGN.md's rule: load 1.5 at perReplica 1 and headroom 0 needs
+Expected floors from docs/policy.md's rule: load 1.5 at perReplica 1 and headroom 0 needs
 2 replicas (the baseline); a peak of 6.5 ten minutes ahead is inside leadTime 15m and
 needs ceil(6.5) = 7.
 """

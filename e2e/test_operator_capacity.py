@@ -3,7 +3,7 @@
 perReplica = CPU requests × averageUtilization / 100 (Kubernetes docs, "Horizontal Pod
 Autoscaling" > "Algorithm details"): one container requesting 1500m under the helper's
 50 % CPU target carries 0.75 cores. Flat load 1.5 then needs ceil(1.5 / 0.75) = 2 (the
-baseline) and the 6.5 peak ceil(6.5 / 0.75) = ceil(8.67) = 9 (DESIGN.md floor rule).
+baseline) and the 6.5 peak ceil(6.5 / 0.75) = ceil(8.67) = 9 (docs/policy.md).
 """
 
 from __future__ import annotations

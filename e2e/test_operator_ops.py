@@ -1,7 +1,7 @@
 """The operator's operational surface on the real control plane: metrics, liveness, JSON
 logs, operator-wide ``--dry-run``, and switching a policy from Enforce to DryRun.
 
-Expected floors as in test_operator.py (DESIGN.md's floor rule): load 1.5 at
+Expected floors as in test_operator.py (docs/policy.md's floor rule): load 1.5 at
 perReplica 1 needs the baseline 2; a peak of 6.5 within leadTime needs ceil(6.5) = 7.
 """
 

@@ -7,7 +7,7 @@ the Lease protocol's: a SIGKILLed holder's Lease is free once its record has not
 for leaseDurationSeconds (15 s, client-go's default, from memory), and the standby
 checks every 2 s; 30 s leaves room for a loaded 2-core machine.
 
-Floors as in test_operator.py (DESIGN.md's floor rule): load 1.5 at perReplica 1 needs
+Floors as in test_operator.py (docs/policy.md's floor rule): load 1.5 at perReplica 1 needs
 the baseline 2; a peak of 6.5 within leadTime needs ceil(6.5) = 7.
 """
 

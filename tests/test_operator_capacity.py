@@ -93,7 +93,7 @@ def test_cpu_target_is_read_from_the_v2_hpa() -> None:
 
 def test_decide_uses_the_derived_capacity() -> None:
     # perReplica 0.5: load 1.5 needs ceil(1.5 / 0.5) = 3 and the 6.5 peak 13, clamped to
-    # the HPA's maxReplicas 10 (DESIGN.md floor rule).
+    # the HPA's maxReplicas 10 (floor rule, docs/policy.md).
     d = decide(observed(policy(capacity={"fromHPA": True}), per_replica=0.5))
     assert d.hpa_patch is not None and d.hpa_patch.min_replicas == 10
 

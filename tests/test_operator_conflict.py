@@ -115,7 +115,7 @@ def fake() -> Iterator[tuple[FakeApi, str]]:
 
 
 def _forecast() -> str:
-    """Flat load 1.5 with a 6.5 peak ten minutes ahead: floor ceil(6.5) = 7 (DESIGN.md rule)."""
+    """Flat load 1.5 with a 6.5 peak ten minutes ahead: floor ceil(6.5) = 7 (docs/policy.md)."""
     now = pd.Timestamp.now(tz="UTC").floor("min")
     pts = [{"t": (now + pd.Timedelta(minutes=i)).strftime("%Y-%m-%dT%H:%M:%SZ"),
             "value": 6.5 if i == 10 else 1.5} for i in range(-10, 110)]  # fmt: skip

@@ -1,6 +1,6 @@
 """The reconcile decision as a pure function of observed state, one row per case.
 
-Expected floors are worked by hand from DESIGN.md's floor rule, floor(now) =
+Expected floors are worked by hand from the floor rule (docs/policy.md), floor(now) =
 clamp(max r(t) for t in [now − H, now + L], baseline, ceiling), with
 r(t) = ceil(load × (1 + headroom) / perReplica): with perReplica 1, headroom 0 and a
 peak load of 6.5 the peak needs ceil(6.5) = 7 replicas.

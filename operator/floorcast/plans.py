@@ -35,7 +35,7 @@ def bounds_for(spec: PolicySpec, *, baseline: int, hpa_max: int) -> Bounds:
     """lower = max(baseline, policy min); ceiling = min(policy max, HPA max).
 
     The baseline wins if the ceiling would be below it: floorcast never lowers what
-    the owner set (DESIGN.md), and never raises anything above the HPA's maximum
+    the owner set (docs/policy.md), and never raises anything above the HPA's maximum
     except in that one case where the owner's own minimum already is.
     """
     if baseline < 1:

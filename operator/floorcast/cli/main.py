@@ -1,6 +1,6 @@
 """The ``floorcast`` command: one entry point, exit codes that scripts can rely on.
 
-Exit codes (DESIGN.md): 0 ok, 2 bad input with a one-line reason on stderr, 1 an
+Exit codes (docs/cli.md): 0 ok, 2 bad input with a one-line reason on stderr, 1 an
 internal error. Every command raises ``InputError`` for anything the user can fix;
 this module is the only place that turns exceptions into exit codes, so no command
 can forget the contract.

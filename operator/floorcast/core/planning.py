@@ -4,7 +4,7 @@ Everything here works on 2-D arrays (workloads × time steps on one shared grid)
 operator with thousands of policies plans them in a few numpy passes instead of a
 Python loop per policy. No I/O, no clock: "now" is always a parameter.
 
-The floor rule (DESIGN.md):
+The floor rule (docs/policy.md):
     r(t)       = ceil(load(t) × (1 + headroom) × event_factor(t) / per_replica)
     floor(now) = clamp(max r(t) for t in [now − hold, now + lead], lower, ceiling)
 with lower = max(HPA baseline, policy minReplicas) and ceiling = min(policy

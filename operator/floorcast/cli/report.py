@@ -77,12 +77,24 @@ def _draw(r: Result, target: float, t: pd.DatetimeIndex, every: int) -> plt.Figu
     return fig
 
 
+def _frontier(r: Result) -> str:
+    from floorcast.cli.report_frontier import draw_frontier
+
+    with plt.rc_context(ps.rc()):
+        fig = draw_frontier(r)
+    return _png(fig)
+
+
 def write_report(r: Result, out: Path, *, title: str, target: float) -> None:
+    from floorcast.cli.backtest import equal_saturation_line
+    from floorcast.cli.report_frontier import ORACLE_WORDS
+
     rows = []
-    for key in ("reactive", "static_peak", "floorcast"):
+    names = {**LABELS, "oracle": ORACLE_WORDS}
+    for key in ("reactive", "static_peak", "floorcast", "oracle"):
         s = r.scores[r.row(key)]
         rows.append(
-            f"<tr><td>{LABELS[key]}</td><td>{s['under_capacity_minutes']:.1f}</td>"
+            f"<tr><td>{names[key]}</td><td>{s['under_capacity_minutes']:.1f}</td>"
             f"<td>{s['over_target_minutes']:.1f}</td><td>{s['replica_hours']:.1f}</td>"
             f"<td>{s['peak_utilization']:.0%}</td><td>{s['scale_events']}</td></tr>"
         )
@@ -98,14 +110,25 @@ def write_report(r: Result, out: Path, *, title: str, target: float) -> None:
     sweep = ""
     if r.sweep:
         cells = "".join(
-            f"<tr><td>{row['leadTime']}</td><td>{row['headroom']:g}</td>"
-            f"<td>{row['under_capacity_minutes']:.1f}</td><td>{row['replica_hours']:.1f}</td></tr>"
-            for row in r.sweep
+            f"<tr><td>{i + 1}</td><td>{row['leadTime']}</td><td>{row['holdTime']}</td>"
+            f"<td>{row['headroom']:g}</td><td>{row['target_utilization']:.0%}</td>"
+            f"<td>{row['under_capacity_minutes']:.1f}</td><td>{row['replica_hours']:.1f}</td>"
+            f"<td>{_saving(row['saving_at_equal_saturation'])}</td></tr>"
+            for i, row in enumerate(r.sweep)
         )
         sweep = (
-            "<h2>Trade-off</h2><table><tr><th>leadTime</th><th>headroom</th>"
-            f"<th>under capacity (min)</th><th>replica-hours</th></tr>{cells}</table>"
+            "<h2>Trade-off</h2><table><tr><th>point</th><th>leadTime</th><th>holdTime</th>"
+            "<th>headroom</th><th>HPA target</th><th>under capacity (min)</th>"
+            f"<th>replica-hours</th><th>saving at equal saturation</th></tr>{cells}</table>"
         )
+    frontier = (
+        "<h2>Against a lower HPA target</h2>"
+        f"<p>{html.escape(equal_saturation_line(r))}. Saturation: minutes whose demand is "
+        "above what the ready pods carry at 100 % of their CPU. The oracle plans on the load "
+        "that really followed: perfect foresight, for reference only.</p>"
+        '<img alt="saturation against replica-hours" style="max-width:100%" '
+        f'src="data:image/png;base64,{_frontier(r)}">'
+    )
     doc = f"""<!doctype html>
 <html><head><meta charset="utf-8"><title>floorcast backtest: {html.escape(title)}</title>
 <style>{ps.css()}</style></head><body>
@@ -116,10 +139,14 @@ pods serve {r.pod_startup} after creation. Start every policy in DryRun and foll
 your change process before Enforce.</p>
 <table><tr><th>scenario</th><th>under capacity (min)</th><th>over target (min)</th>
 <th>replica-hours</th><th>peak utilization</th><th>scale events</th></tr>{"".join(rows)}</table>
-{err}{sweep}
+{frontier}{err}{sweep}
 <img alt="load, replicas and utilization" style="max-width:100%"
  src="data:image/png;base64,{_plots(r, target)}">
 </body></html>
 """
     out.parent.mkdir(parents=True, exist_ok=True)
     out.write_text(doc, encoding="utf-8")
+
+
+def _saving(x: float | None) -> str:
+    return "n/a" if x is None else f"{x:+.0%}"

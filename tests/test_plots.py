@@ -106,7 +106,11 @@ def test_backtest_report_shares_the_palette(tmp_path):
     write_report(result, out, title="shop/storefront", target=0.8)
     page = out.read_text()
     assert ps.css() in page and "#ccc" not in page  # the page's own stylesheet is the palette's
-    (data,) = re.findall(r"base64,([A-Za-z0-9+/=]+)", page)
+    # Two pictures: the frontier (saturation against replica-hours), then the time plots.
+    frontier, data = re.findall(r"base64,([A-Za-z0-9+/=]+)", page)
+    first = mimage.imread(io.BytesIO(base64.b64decode(frontier)), format="png")
+    assert _near(first[:1, :1], ps.PAPER) == 1
+    assert _near(first, ps.FLOOR) > 20 and _near(first, ps.SIZED_ON) > 20
     img = mimage.imread(io.BytesIO(base64.b64decode(data)), format="png")
     assert _near(img[:1, :1], ps.PAPER) == 1  # the paper, not matplotlib's white
     assert _near(img, ps.FLOOR) > 100 and _near(img, ps.SIZED_ON) > 100  # floorcast and HPA rows

@@ -6,6 +6,7 @@ import os
 from pathlib import Path
 
 import prometheus_install as pi
+import pytest
 
 
 def _fake(bin_dir: Path, names: tuple[str, ...] = pi.NAMES) -> None:
@@ -34,3 +35,20 @@ def test_nothing_anywhere_is_none(tmp_path, monkeypatch):
     monkeypatch.setenv("FLOORCAST_CACHE", str(tmp_path / "cache"))
     monkeypatch.setenv("PATH", str(tmp_path / "empty"))
     assert pi.found() is None
+
+
+def test_without_package_lists_a_non_root_user_is_told_what_to_run(tmp_path, monkeypatch):
+    monkeypatch.setenv("FLOORCAST_CACHE", str(tmp_path / "cache"))
+    monkeypatch.setattr(pi.shutil, "which", lambda name: f"/usr/bin/{name}")
+    monkeypatch.setattr(pi, "_candidate", lambda: None)
+    monkeypatch.setattr(pi.os, "geteuid", lambda: 1000)
+    with pytest.raises(pi.InstallError, match=r"run `sudo apt-get update` once"):
+        pi.ensure()
+    assert not pi.cache_dir().exists()  # nothing half-fetched
+
+
+def test_without_apt_and_without_binaries_the_error_says_use_path(tmp_path, monkeypatch):
+    monkeypatch.setenv("FLOORCAST_CACHE", str(tmp_path / "cache"))
+    monkeypatch.setattr(pi.shutil, "which", lambda name: None)
+    with pytest.raises(pi.InstallError, match=r"put prometheus and promtool \(2\.x\) on PATH"):
+        pi.ensure()

@@ -21,6 +21,7 @@ from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
 from floorcast import replay
+from floorcast.cli.options import PER_REPLICA, REPLICAS, duration
 from floorcast.durations import format_duration, parse_duration
 from floorcast.errors import InputError
 from floorcast.hpa_manifest import load_hpa_file
@@ -141,18 +142,19 @@ def tuned_summary(r: replay.Result) -> dict[str, Any]:
 @click.option("--hpa", "hpa_file", default=None, type=click.Path(path_type=Path),
               help="The autoscaling/v2 HPA manifest the policy targets.")  # fmt: skip
 @click.option(
-    "--baseline", default=None, type=click.IntRange(min=1), help="HPA minReplicas [HPA or 1]."
+    "--baseline", default=None, type=REPLICAS, help="HPA minReplicas [HPA or 1]."
 )
-@click.option("--hpa-max", default=None, type=click.IntRange(min=1),
+@click.option("--hpa-max", default=None, type=REPLICAS,
               help="HPA maxReplicas [HPA, policy maxReplicas or 100].")  # fmt: skip
 @click.option("--target-utilization", default=None, type=click.FloatRange(min=0, min_open=True),
               help="HPA CPU target in percent [HPA, or 80].")  # fmt: skip
-@click.option("--per-replica", default=None, type=float,
+@click.option("--per-replica", default=None, type=PER_REPLICA,
               help="Per-replica capacity, for a capacity.fromHPA policy.")  # fmt: skip
 @click.option("--pod-startup", default=None, help="Time until a new pod serves [policy leadTime].")
 @click.option("--forecast-method", default="auto",
               type=click.Choice(["auto", "seasonal-naive", "fourier", "holt-winters"]))  # fmt: skip
-@click.option("--cadence", default="24h", show_default=True, help="Re-forecast every.")
+@click.option("--cadence", default="24h", show_default=True, help="Re-forecast every.",
+              callback=duration(minimum=timedelta(minutes=1), maximum=timedelta(days=366)))
 @click.option("--start", default=None, help="RFC 3339 start of the replay.")
 @click.option("--end", default=None, help="RFC 3339 end of the replay.")
 @click.option(

@@ -18,17 +18,23 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 from rich.table import Table
 
+from floorcast.cli.options import duration
 from floorcast.core.forecasting import METHODS
 from floorcast.core.forecasting.engine import BatchForecast, forecast_batch
 from floorcast.core.forecasting.handover import crossfade
 from floorcast.core.series import Series
-from floorcast.durations import parse_duration
+from floorcast.core.series_text import MAX_FORECAST_POINTS
+from floorcast.durations import format_duration, parse_duration
 from floorcast.errors import InputError
 from floorcast.sources.files import read_forecast, read_history, write_forecast
 from floorcast.timefmt import iso, parse_rfc3339
 
 HELP = "Forecast load from recorded history (CSV/JSON files or a Prometheus server)."
 METHOD_CHOICES = ["auto", *sorted(METHODS)]
+
+
+#: A year ahead is beyond any seasonal method's reach; longer is a typo.
+MAX_HORIZON = pd.Timedelta(days=366).to_pytimedelta()
 
 
 def parse_season(text: str) -> str | pd.Timedelta | None:
@@ -40,6 +46,8 @@ def parse_season(text: str) -> str | pd.Timedelta | None:
 
 
 def parse_quantiles(text: str) -> tuple[float, float]:
+    if len(text) > 40:  # whatever it is, not two quantiles; and not echoed in full
+        raise InputError(f"--quantiles: expected two numbers like 0.1,0.9, got {text[:37]!r}...")
     try:
         lo, hi = (float(x) for x in text.split(","))
     except ValueError:
@@ -47,6 +55,19 @@ def parse_quantiles(text: str) -> tuple[float, float]:
     if not 0 < lo < hi < 1:
         raise InputError(f"--quantiles: need 0 < lower < upper < 1, got {text!r}")
     return lo, hi
+
+
+def check_horizon(horizon: str, histories: list[Series]) -> None:
+    """The output's size, before anything is allocated: a forecast of more points than
+    a forecast may hold (core/series_text.MAX_FORECAST_POINTS) could be neither stored
+    nor read back, and 2000000h at 5m would need gigabytes first."""
+    h = pd.Timedelta(parse_duration(horizon, field="--horizon"))
+    for s in histories:
+        n = h / s.step
+        if n > MAX_FORECAST_POINTS:
+            raise InputError(f"--horizon {horizon} is {n:.0f} steps of {format_duration(s.step)}, "
+                             f"over the limit of {MAX_FORECAST_POINTS} forecast points",
+                             source=s.source)  # fmt: skip
 
 
 def parse_windows(values: tuple[str, ...]) -> list[tuple[pd.Timestamp, pd.Timestamp]]:
@@ -142,7 +163,8 @@ def _fmt(v: Any, pct: bool = False) -> str:
 @click.option(
     "--season", default="auto", show_default=True, help="auto, none, 1d, 1w or a duration."
 )
-@click.option("--horizon", default="24h", show_default=True, help="How far ahead.")
+@click.option("--horizon", default="24h", show_default=True, help="How far ahead.",
+              callback=duration(maximum=MAX_HORIZON))
 @click.option("--quantiles", default="0.1,0.9", show_default=True, help="Band quantiles.")
 @click.option("--exclude", multiple=True, help="START/END of a past one-off event (repeatable).")
 @click.option("--max-gap", default="30m", show_default=True, help="Longest gap filled.")
@@ -217,6 +239,7 @@ def forecast(**o: Any) -> None:
     else:
         histories = [read_history(o["history"], max_gap=max_gap)]
         names = [Path(o["history"]).stem]
+    check_horizon(o["horizon"], histories)
     with console.status(f"forecasting {len(histories)} series ({o['method']})"):
         try:
             result = forecast_batch(

@@ -14,7 +14,7 @@ import pandas as pd
 from rich.console import Console
 from rich.table import Table
 
-from floorcast.errors import InputError
+from floorcast.cli.options import PER_REPLICA, REPLICAS
 from floorcast.plans import FloorPlan, plan_policy
 from floorcast.policy import load_policy_file
 from floorcast.sources.files import read_forecast
@@ -50,19 +50,19 @@ def default_at(plan_start: pd.Timestamp, plan_end: pd.Timestamp, now: pd.Timesta
     "--baseline",
     default=1,
     show_default=True,
-    type=click.IntRange(min=1),
+    type=REPLICAS,
     help="The HPA's own minReplicas.",
 )
 @click.option(
     "--hpa-max",
     default=None,
-    type=click.IntRange(min=1),
+    type=REPLICAS,
     help="The HPA's maxReplicas [policy maxReplicas or 100].",
 )
 @click.option(
     "--per-replica",
     default=None,
-    type=float,
+    type=PER_REPLICA,
     help="Per-replica capacity, to preview a capacity.fromHPA policy offline.",
 )
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
@@ -79,8 +79,6 @@ def plan(
 ) -> None:
     policy = load_policy_file(policy_file)
     fc = read_forecast(forecast)
-    if per_replica is not None and per_replica <= 0:
-        raise InputError(f"--per-replica must be > 0, got {per_replica}")
     spec = policy.spec
     hmax = hpa_max if hpa_max is not None else (spec.max_replicas or 100)
     if at is not None:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import click
 
+from floorcast.cli.options import CONNECTIONS, PORT
 from floorcast.durations import parse_duration
 from floorcast.errors import InputError
 
@@ -35,14 +36,14 @@ def _interval(value: str) -> float:
 )
 @click.option(
     "--metrics-port",
-    type=int,
+    type=PORT,
     default=8080,
     show_default=True,
     help="Prometheus metrics port (0: off).",
 )
 @click.option(
     "--liveness-port",
-    type=int,
+    type=PORT,
     default=8081,
     show_default=True,
     help="Liveness endpoint /healthz port (0: off).",
@@ -76,7 +77,7 @@ def _interval(value: str) -> float:
 )
 @click.option(
     "--max-api-connections",
-    type=click.IntRange(min=1),
+    type=CONNECTIONS,
     default=16,
     show_default=True,
     help="kopf's connections to the API server besides one per watch stream; bounds "

@@ -45,7 +45,7 @@ from floorcast import replay
 from floorcast.core.series import Series
 from floorcast.policy import Capacity, ConfigMapRef, ForecastSource, PolicySpec
 
-SAMPLE = pd.Timedelta(minutes=5)  # service time one sample is replayed as
+SAMPLE = pd.Timedelta(minutes=5)  # service time one sample is replayed as (--sample)
 START = pd.Timestamp("2026-01-05T00:00:00Z")  # a Monday, like both datasets' first day
 PEAK_PODS, TARGET, POD_CORES = 30, 0.70, 1.0
 PER_REPLICA = POD_CORES * TARGET  # load one pod carries at the target
@@ -80,10 +80,11 @@ def pedestrians(sensor: str, name: str) -> Dataset:
     return Dataset(name, "bursty", s.to_numpy(), 24)
 
 
-def as_service_load(d: Dataset) -> Series:
-    """The dataset as a 5-minute service-load series peaking at PEAK_PODS pods."""
+def as_service_load(d: Dataset, sample: pd.Timedelta) -> Series:
+    """The dataset as a service-load series, one sample per ``sample``, peaking at
+    PEAK_PODS pods."""
     v = d.values / d.values.max() * PEAK_PODS * PER_REPLICA
-    return Series(start=START, step=SAMPLE, values=np.maximum(v, 0.0), unit="cores")
+    return Series(start=START, step=sample, values=np.maximum(v, 0.0), unit="cores")
 
 
 def spec(*, headroom: float = 0.1, upper: bool = True, hold: str = "15m") -> PolicySpec:
@@ -99,12 +100,12 @@ def spec(*, headroom: float = 0.1, upper: bool = True, hold: str = "15m") -> Pol
     )
 
 
-def setup(d: Dataset, method: str, **kw) -> replay.Setup:
-    day = d.per_day * SAMPLE
+def setup(d: Dataset, method: str, sample: pd.Timedelta, **kw) -> replay.Setup:
+    day = d.per_day * sample
     return replay.Setup(
         baseline=2, hpa_max=100, target_utilization=TARGET, per_replica=PER_REPLICA,
         pod_startup=timedelta(minutes=5), method=method, season=7 * d.per_day,
-        cadence=day, min_train=21 * day, lookback=21 * day, forecast_step=SAMPLE, **kw,
+        cadence=day, min_train=21 * day, lookback=21 * day, forecast_step=sample, **kw,
     )  # fmt: skip
 
 
@@ -141,18 +142,22 @@ def report(label: str, r: replay.Result) -> dict[str, float | None]:
 def main() -> int:
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="seasonal naive instead of auto")
+    ap.add_argument("--sample", default="5min", help="service time per sample [5min]")
     a = ap.parse_args()
     method = "seasonal-naive" if a.quick else "auto"
+    sample = pd.Timedelta(a.sample)
     datasets = [taylor(), pedestrians("45 Queen Street", "ped-queen"),
                 pedestrians("19 Shortland Street", "ped-shortland")]  # fmt: skip
     ok = True
     holds = [replay.Knobs(timedelta(minutes=5), 0.1, timedelta(minutes=m), TARGET)
              for m in (0, 5)]  # fmt: skip
     for d in datasets:
-        h = as_service_load(d)
+        h = as_service_load(d, sample)
         t0 = time.perf_counter()
-        print(f"{d.name} ({d.kind}, {len(h)} samples, a day = {d.per_day * SAMPLE}, {method})")
-        r = replay.run(spec(), h, setup(d, method), sweep=holds)
+        r = replay.run(spec(), h, setup(d, method, sample), sweep=holds)
+        e = r.forecast_error
+        print(f"{d.name} ({d.kind}, {len(h)} samples, a day = {d.per_day * sample}; "
+              f"forecasts {', '.join(e['methods'])}, MASE {e['mase']:.2f})")  # fmt: skip
         res = report("defaults", r)
         for row in r.sweep:
             hold = f"holdTime {row['holdTime'].components.minutes}m"
@@ -160,9 +165,9 @@ def main() -> int:
             print(f"  {hold:22s} saturation {row['under_capacity_minutes']:6.1f} min  "
                   f"replica-h {row['replica_hours']:7.1f}  saving {saved}")  # fmt: skip
         report("lean (0.05, no band)", replay.run(spec(headroom=0.05, upper=False), h,
-                                                  setup(d, method)))  # fmt: skip
-        before = replay.run(spec(), h, setup(d, method, plan_step=SAMPLE))
-        report("planned per 5m step", before)
+                                                  setup(d, method, sample)))  # fmt: skip
+        before = replay.run(spec(), h, setup(d, method, sample, plan_step=sample))
+        report("planned per step", before)
         print(f"  time {time.perf_counter() - t0:.1f} s")
         goal = "saving >= 30 %" if d.kind == "bursty" else "oracle captured >= 80 %"
         met = (res["saving"] or -1) >= 0.3 if d.kind == "bursty" else (res["capture"] or 0) >= 0.8

@@ -87,3 +87,31 @@ def test_equal_saturation_interpolates_between_the_bracketing_rungs():
     assert bumpy["target_utilization"] == pytest.approx(0.7 - 0.1 * 75 / 80)
     with pytest.raises(ValueError, match="descending"):
         frontier.equal_saturation([0.5, 0.6], [1.0, 2.0], [1.0, 2.0], 1.0)
+
+
+def test_a_lower_rung_is_not_held_back_by_the_base_max_replicas():
+    """Lowering the target without raising maxReplicas would let the cap, not the
+    target, decide the rung: the ladder's cap grows with base / lowest target."""
+    from datetime import timedelta
+
+    from floorcast import replay
+    from floorcast.core.series import Series
+    from floorcast.policy import Capacity, ConfigMapRef, ForecastSource, PolicySpec
+
+    spec = PolicySpec(target_name="svc",
+                      forecast=ForecastSource(config_map_ref=ConfigMapRef("f", "k"), url=None),
+                      capacity=Capacity(per_replica=0.7, from_hpa=False))  # fmt: skip
+    n = 3 * 288
+    hour = (np.arange(n) % 288) / 12
+    h = Series(start="2026-03-02T00:00:00Z", step="5min", unit="cores",
+               values=np.where((hour > 9) & (hour < 17), 6.3, 1.4))  # fmt: skip
+    day = pd.Timedelta(days=1)
+    setup = replay.Setup(baseline=1, hpa_max=10, target_utilization=0.7, per_replica=0.7,
+                         pod_startup=timedelta(minutes=5), method="seasonal-naive",
+                         season=None, min_train=day, lookback=day)  # fmt: skip
+    r = replay.run(spec, h, setup)
+    # 6.3 cores need 9 pods at 70 % (within the cap of 10) and 31.5 at 20 %; the
+    # HPA's 10 % tolerance ([HPA doc] "Algorithm details") may stop it from 29 on.
+    assert r.trace.replicas[r.row("reactive")].max() == 9
+    assert 29 <= r.trace.replicas[r.row("hpa@0.2")].max() <= 32
+    assert r.ladder[-1]["target_utilization"] == 0.1

@@ -11,7 +11,7 @@ row in one call) and every row goes through one vectorized ``hpa_model.simulate`
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import timedelta
 from typing import Any
 
@@ -184,9 +184,22 @@ def run(
     delay = planning.window_steps(pd.Timedelta(startup), sync)
     # core.frontier: a row at target u' is the base row's demand scaled by u / u'.
     dem = demand[None, :] * frontier.demand_scale(base, targets)[:, None]
+    k = len(names) - len(extra)
     trace = hpa_model.simulate(
-        dem, mins, per_replica=setup.per_replica, hpa=hpa, ready_delay_steps=delay
+        dem[:k], mins[:k], per_replica=setup.per_replica, hpa=hpa, ready_delay_steps=delay
     )
+    if extra:
+        # Whoever lowers the target raises maxReplicas with it, or the cap, not the
+        # target, would decide the rung: the rungs share the cap scaled for the lowest.
+        cap = int(np.ceil(hpa.max_replicas * base / min(extra) - 1e-9))
+        more = hpa_model.simulate(dem[k:], mins[k:], per_replica=setup.per_replica,
+                                  hpa=replace(hpa, max_replicas=max(cap, hpa.max_replicas)),
+                                  ready_delay_steps=delay)  # fmt: skip
+        trace = hpa_model.Trace(
+            replicas=np.vstack([trace.replicas, more.replicas]),
+            ready=np.vstack([trace.ready, more.ready]),
+            scaled=np.vstack([trace.scaled, more.scaled]),
+        )
     scores = bt.metrics(trace, dem, per_replica=setup.per_replica, target=targets, sync=sync)
     err = bt.forecast_error(rolling, history, end)
     lad = _ladder(rungs, base, names, scores)

@@ -21,6 +21,7 @@ from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
 from floorcast import replay
+from floorcast.cli.backtest_summary import equal_saturation_line, saving_pct, tuned_summary
 from floorcast.cli.options import PER_REPLICA, REPLICAS, duration
 from floorcast.durations import format_duration, parse_duration
 from floorcast.errors import InputError
@@ -32,9 +33,6 @@ from floorcast.timefmt import iso, parse_rfc3339
 #: How `backtest` fills short gaps in recorded history (see run()).
 REPLAY_GAP_FILL = "ffill"
 HELP = "Replay history through the reactive HPA, with and without floors."
-ORACLE_LABEL = "perfect foresight (reference only: plans on the load that really followed)"
-KEYS = ("under_capacity_minutes", "over_target_minutes", "replica_hours",
-        "peak_utilization", "scale_events")  # fmt: skip
 
 
 SWEEP_KEYS = ("leadTime", "headroom", "holdTime", "targetUtilization")
@@ -111,28 +109,6 @@ def _summary(r: replay.Result) -> dict[str, Any]:
             for row in r.sweep
         ]  # fmt: skip
     return doc
-
-
-def tuned_summary(r: replay.Result) -> dict[str, Any]:
-    """The comparison with the obvious alternative (docs/backtest.md names each key)."""
-    fc, orc = r.tuned["floorcast"], r.tuned["oracle"]
-    cap = None
-    if fc["saving"] is not None and orc["saving"] is not None and orc["saving"] > 0:
-        cap = fc["saving"] / orc["saving"]
-    return {
-        "tuned_hpa": {
-            **fc["hpa"],
-            "ladder": [{k: x[k] for k in ("target_utilization", *KEYS)} for x in r.ladder],
-        },
-        "saving_at_equal_saturation": fc["saving"],
-        "oracle": {
-            "label": ORACLE_LABEL,
-            **r.scores[r.row("oracle")],
-            "tuned_hpa": orc["hpa"],
-            "saving_at_equal_saturation": orc["saving"],
-        },
-        "oracle_capture": cap,
-    }
 
 
 @click.command("backtest", help=HELP)
@@ -282,33 +258,6 @@ def print_summary(r: replay.Result, name: str, target: float, console: Console) 
                        format_duration(row["holdTime"].to_pytimedelta()), f"{row['headroom']:g}",
                        f"{row['target_utilization']:.0%}",
                        f"{row['under_capacity_minutes']:.1f}", f"{row['replica_hours']:.1f}",
-                       _pct(row["saving_at_equal_saturation"],
+                       saving_pct(row["saving_at_equal_saturation"],
                             row["equal_saturation_found"]))  # fmt: skip
         console.print(st)
-
-
-def _pct(x: float | None, found: str) -> str:
-    if x is None:
-        return "n/a"
-    # Beyond the ladder the HPA alone was tuned as far as it goes and still saturated
-    # more: the true saving is at least this.
-    return f"{'≥ ' if found == 'beyond_ladder' else ''}{x:+.0%}"
-
-
-def equal_saturation_line(r: replay.Result) -> str:
-    """One sentence: what lowering the HPA's target instead would have cost."""
-    doc = tuned_summary(r)
-    hpa = doc["tuned_hpa"]
-    how = {
-        "interpolated": f"at target {hpa['target_utilization']:.0%}",
-        "top": f"already at target {hpa['target_utilization']:.0%}",
-        "beyond_ladder": f"not even at {hpa['target_utilization']:.0%} (its lowest rung)",
-    }[hpa["found"]]
-    cap, orc = doc["oracle_capture"], doc["oracle"]
-    return (
-        f"HPA alone saturates as little as floorcast {how}: {hpa['replica_hours']:.1f} "
-        f"replica-hours; floorcast saves "
-        f"{_pct(doc['saving_at_equal_saturation'], hpa['found'])} at equal saturation "
-        f"(oracle {_pct(orc['saving_at_equal_saturation'], orc['tuned_hpa']['found'])}"
-        f", captured {'n/a' if cap is None else f'{cap:.0%}'})"
-    )

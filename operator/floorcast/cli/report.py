@@ -86,7 +86,7 @@ def _frontier(r: Result) -> str:
 
 
 def write_report(r: Result, out: Path, *, title: str, target: float) -> None:
-    from floorcast.cli.backtest import equal_saturation_line
+    from floorcast.cli.backtest_summary import equal_saturation_line
     from floorcast.cli.report_frontier import ORACLE_WORDS
 
     rows = []

@@ -77,3 +77,23 @@ def test_refine_is_numpys_interp_on_the_same_points():
     np.testing.assert_allclose(mid[0], ref)
     with pytest.raises(planning.PlanningError, match="must divide"):
         planning.refine(load, pd.Timedelta("5min"), pd.Timedelta("7min"))
+
+
+def test_the_adjust_hook_decides_what_floors_are_planned_from():
+    """The plug-in point for a live correction: its forecasts, not the raw ones, are
+    planned on (here it halves them, so the floors fall and the oracle does not)."""
+    from dataclasses import replace
+
+    h = _ramps("5min")
+    seen = []
+
+    def halve(rolling, history):
+        seen.append(history is h)
+        return replace(rolling, point=rolling.point / 2, upper=rolling.upper / 2)
+
+    a = replay.run(_spec(), h, _setup())
+    b = replay.run(_spec(), h, _setup(adjust=halve))
+    assert seen == [True]
+    fa, fb = (x.minimum[x.row("floorcast")] for x in (a, b))
+    assert (fb <= fa).all() and fb.sum() < fa.sum()
+    np.testing.assert_array_equal(a.minimum[a.row("oracle")], b.minimum[b.row("oracle")])

@@ -80,6 +80,8 @@ def test_text_and_report_show_the_comparison(history, tmp_path, capsys):
         (["--sweep", "holdTime=soon"], "holdTime"),
         (["--sweep", "headroom=-1"], "--sweep headroom: values must be >= 0"),
         (["--sweep", "cooldown=1m"], "unknown setting 'cooldown'"),
+        (["--plan-step", "7m"], "--plan-step 7m must divide the forecast step 5m"),
+        (["--plan-step", "0s"], "--plan-step"),
     ],
 )
 def test_bad_new_inputs_exit_2_with_one_line(history, capsys, args, words):

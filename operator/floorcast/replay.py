@@ -22,6 +22,7 @@ from floorcast import plans
 from floorcast.core import backtest as bt
 from floorcast.core import frontier, hpa_model, planning
 from floorcast.core.series import Series
+from floorcast.durations import format_duration
 from floorcast.errors import InputError
 from floorcast.policy import PolicySpec
 from floorcast.replay_floors import Knobs, floors, plan_step_for
@@ -148,6 +149,11 @@ def run(
     say("planning floors")
     want = setup.plan_step if setup.plan_step is not None else sync
     pstep = plan_step_for(fstep, want)
+    if setup.plan_step is not None and pstep != setup.plan_step:
+        raise InputError(
+            f"--plan-step {format_duration(pd.Timedelta(setup.plan_step).to_pytimedelta())} "
+            f"must divide the forecast step {format_duration(fstep.to_pytimedelta())}"
+        )
     kw = {"per_replica": setup.per_replica, "base_target": base}
     fc = floors(spec, rolling, grid, bounds, plan_step=pstep, **kw)
     orc = bt.oracle_forecasts(history, times, horizon=horizon)
@@ -244,7 +250,7 @@ def _check(setup: Setup) -> None:
             f"target utilization must be in (0, 1000] %, got {setup.target_utilization:.0%}"
         )
     if setup.plan_step is not None and setup.plan_step <= pd.Timedelta(0):
-        raise InputError(f"planning step must be > 0, got {setup.plan_step}")
+        raise InputError("--plan-step must be > 0")
 
 
 def _ladder(

@@ -16,6 +16,7 @@ from typing import Any
 
 import click
 import numpy as np
+import pandas as pd
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
@@ -143,6 +144,12 @@ def _summary(r: replay.Result) -> dict[str, Any]:
     default=None,
     help="HPA-alone targets in percent, e.g. 70,60,50,40 [target down to 10 in 5s].",
 )
+@click.option(
+    "--plan-step",
+    default=None,
+    help="Grid the need is planned on [the HPA sync, 15s]; the forecast step plans as the "
+    "operator does today.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
 @click.option(
     "--report", default=None, type=click.Path(path_type=Path), help="Write an HTML report."
@@ -151,8 +158,9 @@ def _summary(r: replay.Result) -> dict[str, Any]:
 def backtest(policy_file: Path, history: Path, hpa_file: Path | None, baseline: int | None,
              hpa_max: int | None, target_utilization: float | None, per_replica: float | None,
              pod_startup: str | None, forecast_method: str, cadence: str, start: str | None,
-             end: str | None, sweep: tuple[str, ...], ladder: str | None, as_json: bool,
-             report: Path | None, extra: tuple[str, ...]) -> None:  # fmt: skip
+             end: str | None, sweep: tuple[str, ...], ladder: str | None,
+             plan_step: str | None, as_json: bool, report: Path | None,
+             extra: tuple[str, ...]) -> None:  # fmt: skip
     policy = load_policy_file(policy_file)
     spec = policy.spec
     hpa = load_hpa_file(hpa_file) if hpa_file is not None else None
@@ -181,6 +189,9 @@ def backtest(policy_file: Path, history: Path, hpa_file: Path | None, baseline: 
         start=parse_rfc3339(start, field="--start") if start else None,
         end=parse_rfc3339(end, field="--end") if end else None,
         ladder=parse_ladder(ladder) if ladder is not None else None,
+        plan_step=pd.Timedelta(parse_duration(plan_step, field="--plan-step"))
+        if plan_step
+        else None,
         **kw,
     )
     own = replay.Knobs(spec.lead_time, spec.headroom, spec.hold_time, target)

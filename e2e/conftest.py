@@ -22,6 +22,7 @@ from kubernetes.client.rest import ApiException
 
 from e2e.controlplane import build
 from e2e.controlplane.cluster import Cluster, ExternalCluster
+from e2e.controlplane.living import LivingSettings
 from e2e.controlplane.process import ControlPlaneError, pid_alive
 from e2e.controlplane.runner import ControlPlane
 from e2e.controlplane.tokens import ServiceAccountCredentials, service_account_credentials
@@ -35,6 +36,13 @@ E2E_DIR = Path(__file__).resolve().parent
 NAMESPACE_LABEL = "e2e.floorcast.dev/test"
 
 _build_error: BaseException | None = None
+
+#: The living cluster the scenarios run on: Pods Ready 40 s after they start (the
+#: "pods take minutes to serve" of production, time-compressed), metrics-server at its
+#: default 15 s resolution, and the HPA controller syncing every 5 s (15 s by default
+#: in a real cluster; shorter here so a scenario fits in minutes).
+LIVING = LivingSettings(pod_ready_delay=40.0)
+LIVING_HPA_SYNC = "5s"
 
 #: A factory: ``make(namespace, name="floorcast-operator", *, create=True)``.
 ServiceAccountFactory = Callable[..., ServiceAccountCredentials]
@@ -65,13 +73,15 @@ def pytest_collection_finish(session: pytest.Session) -> None:
         return
     if not any(_is_e2e(item) for item in session.items):
         return
-    if all(p.exists() for p in build.binaries().all()) and build.helm_path().exists():
+    extra = (build.helm_path(), build.kwok_path(), build.metrics_server_path())
+    if all(p.exists() for p in (*build.binaries().all(), *extra)):
         return
     capman = session.config.pluginmanager.getplugin("capturemanager")
     try:
         with capman.global_and_fixture_disabled():
-            build.ensure_built()
-            build.ensure_helm()  # the chart tests' helm, also outside every timeout
+            # helm (chart tests), kwok and metrics-server (the living cluster) too,
+            # all outside every timeout.
+            build.ensure_all()
     except Exception as exc:
         _build_error = exc
 
@@ -96,6 +106,43 @@ def control_plane() -> Iterator[Cluster]:
     cp.start()
     timings = ", ".join(f"{k} {v:.1f}s" for k, v in cp.startup_seconds.items())
     print(f"\n[controlplane] up at {cp.server} ({timings})", file=sys.stderr)
+    crashed: ControlPlaneError | None = None
+    try:
+        yield cp
+        try:
+            cp.check_alive()
+        except ControlPlaneError as exc:
+            crashed = exc
+    finally:
+        pids = cp.pids()
+        cp.stop()
+    leaked = {name: pid for name, pid in pids.items() if pid_alive(pid)}
+    if crashed is not None:
+        raise crashed
+    if leaked:
+        raise ControlPlaneError(f"processes still running after stop(): {leaked}")
+
+
+@pytest.fixture(scope="session")
+def living_plane() -> Iterator[ControlPlane]:
+    """A second, living control plane: kube-scheduler, kwok Nodes whose Pods become
+    Ready after ``LIVING.pod_ready_delay``, metrics-server behind the aggregation layer,
+    and an HPA controller that scales on those metrics (``LIVING_HPA_SYNC``).
+
+    Separate from ``control_plane`` so the many tests that need no running Pods stay
+    fast and undisturbed; the same crash and leak checks apply at teardown.
+    """
+    if os.environ.get(KUBECONFIG_ENV):
+        raise ControlPlaneError(
+            "the living-cluster scenarios need the harness's own control plane "
+            f"(unset {KUBECONFIG_ENV})"
+        )
+    if _build_error is not None:
+        raise ControlPlaneError(f"building the control plane failed: {_build_error}")
+    cp = ControlPlane(living=LIVING, hpa_sync_period=LIVING_HPA_SYNC)
+    cp.start()
+    timings = ", ".join(f"{k} {v:.1f}s" for k, v in cp.startup_seconds.items())
+    print(f"\n[controlplane] living cluster up at {cp.server} ({timings})", file=sys.stderr)
     crashed: ControlPlaneError | None = None
     try:
         yield cp

@@ -121,3 +121,19 @@ def test_skipping_quiet_steps_changes_nothing(monkeypatch, seed):
     np.testing.assert_array_equal(fast.ready, slow.ready)
     np.testing.assert_array_equal(fast.scaled, slow.scaled)
     assert fast.scaled.sum() > 10  # the case does scale
+
+
+def test_metric_resolution_delays_the_reaction_to_the_newest_scrape():
+    """With metrics-server scraping every 15 s (its documented default
+    --metric-resolution) and the HPA syncing every 5 s, a step in load at t = 20 s is
+    first seen by the sync after the scrape at t = 30 s, i.e. at t = 35 s; without a
+    resolution the sync at 25 s (one interval later) already sees it."""
+    demand = np.r_[np.full(4, 1.0), np.full(16, 4.0)]  # 5 s steps; rises at step 4
+    base = dict(max_replicas=20, target_utilization=1.0, sync_seconds=5)
+    fast = hm.simulate(demand, np.ones((1, 20), dtype=np.int64), per_replica=1.0,
+                       hpa=hm.HpaConfig(**base), ready_delay_steps=0)  # fmt: skip
+    slow = hm.simulate(demand, np.ones((1, 20), dtype=np.int64), per_replica=1.0,
+                       hpa=hm.HpaConfig(**base, metric_resolution_seconds=15),
+                       ready_delay_steps=0)  # fmt: skip
+    assert int(np.argmax(fast.replicas[0] > 1)) == 5
+    assert int(np.argmax(slow.replicas[0] > 1)) == 7

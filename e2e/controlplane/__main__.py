@@ -18,9 +18,8 @@ from e2e.controlplane.runner import ControlPlane
 
 
 def _build(_: argparse.Namespace) -> int:
-    for path in build.ensure_built().all():
+    for path in build.ensure_all():
         print(path)
-    print(build.ensure_helm())
     return 0
 
 

@@ -1,9 +1,8 @@
 """Build the Kubernetes control-plane binaries the e2e suite runs, once, into a cache.
 
-There is no container engine on the machines this project is developed and tested
-on, so the suite cannot use a containerised local cluster. The Go module proxy does
-serve Kubernetes' and etcd's modules, and their commands build with `go build`; this
-module pins them (``modules/*/go.mod`` and ``go.sum``) and builds them into
+The suite needs no container engine: the Go module proxy serves Kubernetes', etcd's,
+helm's, kwok's and metrics-server's modules, and their commands build with
+`go build`; this module pins them (``modules/*/go.mod`` and ``go.sum``) and builds them into
 ``$FLOORCAST_CACHE`` (default ``${XDG_CACHE_HOME:-~/.cache}/floorcast``)
 ``/controlplane/<kubernetes version>/``. A build runs only when a binary is missing
 and under a file lock, so parallel test sessions never build twice.
@@ -25,8 +24,11 @@ KUBERNETES_VERSION = "v1.37.2"
 ETCD_VERSION = "v3.7.3"
 MODULES = Path(__file__).resolve().parent / "modules"
 
-KUBE_COMMANDS = ("kube-apiserver", "kube-controller-manager", "kubectl")
+KUBE_COMMANDS = ("kube-apiserver", "kube-controller-manager", "kube-scheduler", "kubectl")
 HELM_VERSION = "v3.22.0"
+# The living cluster: fake Nodes and Pod lifecycle, and the metrics.k8s.io API.
+KWOK_VERSION = "v0.8.0"
+METRICS_SERVER_VERSION = "v0.8.0"
 
 
 @dataclass(frozen=True)
@@ -36,10 +38,17 @@ class Binaries:
     etcd: Path
     kube_apiserver: Path
     kube_controller_manager: Path
+    kube_scheduler: Path
     kubectl: Path
 
     def all(self) -> list[Path]:
-        return [self.etcd, self.kube_apiserver, self.kube_controller_manager, self.kubectl]
+        return [
+            self.etcd,
+            self.kube_apiserver,
+            self.kube_controller_manager,
+            self.kube_scheduler,
+            self.kubectl,
+        ]
 
 
 def cache_root() -> Path:
@@ -60,6 +69,7 @@ def binaries() -> Binaries:
         etcd=d / "etcd",
         kube_apiserver=d / "kube-apiserver",
         kube_controller_manager=d / "kube-controller-manager",
+        kube_scheduler=d / "kube-scheduler",
         kubectl=d / "kubectl",
     )
 
@@ -177,8 +187,76 @@ def ensure_helm() -> Path:
     return out
 
 
+@dataclass(frozen=True)
+class _Tool:
+    name: str
+    version: str
+    module: str
+    package: str
+    ldflags: str = "-s -w"
+
+
+_KWOK = _Tool(
+    "kwok",
+    KWOK_VERSION,
+    "kwok",
+    "sigs.k8s.io/kwok/cmd/kwok",
+    "-s -w",
+)
+_METRICS_SERVER = _Tool(
+    "metrics-server",
+    METRICS_SERVER_VERSION,
+    "metrics-server",
+    "sigs.k8s.io/metrics-server/cmd/metrics-server",
+    f"-s -w -X k8s.io/client-go/pkg/version.gitVersion={METRICS_SERVER_VERSION}",
+)
+
+
+def _tool_path(tool: _Tool) -> Path:
+    return cache_root() / tool.name / tool.version / tool.name
+
+
+def _ensure_tool(tool: _Tool) -> Path:
+    out = _tool_path(tool)
+    if out.exists():
+        return out
+    if shutil.which("go") is None:
+        raise RuntimeError(f"the Go toolchain is needed to build {tool.name}: `go` is not on PATH")
+    out.parent.mkdir(parents=True, exist_ok=True)
+    with open(out.parent / ".build.lock", "w") as lock:
+        fcntl.flock(lock, fcntl.LOCK_EX)
+        if out.exists():
+            return out
+        _log(f"building {tool.name} {tool.version} into {out.parent}")
+        tmp = out.parent / f".partial-{tool.name}"
+        _go_build(MODULES / tool.module, tmp, [tool.package], tool.ldflags)
+        os.replace(tmp, out)
+    return out
+
+
+def kwok_path() -> Path:
+    return _tool_path(_KWOK)
+
+
+def metrics_server_path() -> Path:
+    return _tool_path(_METRICS_SERVER)
+
+
+def ensure_kwok() -> Path:
+    """kwok runs the living cluster's fake Nodes, Pod lifecycle and kubelet metrics."""
+    return _ensure_tool(_KWOK)
+
+
+def ensure_metrics_server() -> Path:
+    """metrics-server serves metrics.k8s.io, the API the real HPA controller reads."""
+    return _ensure_tool(_METRICS_SERVER)
+
+
+def ensure_all() -> list[Path]:
+    """Everything the e2e suite runs; what `python -m e2e.controlplane build` calls."""
+    return [*ensure_built().all(), ensure_helm(), ensure_kwok(), ensure_metrics_server()]
+
+
 if __name__ == "__main__":
-    b = ensure_built()
-    for p in b.all():
+    for p in ensure_all():
         print(p)
-    print(ensure_helm())

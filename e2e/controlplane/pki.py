@@ -35,6 +35,9 @@ SERVING_DNS_NAMES = (
 )
 
 _VALIDITY = _dt.timedelta(days=2)
+#: The common name the API server's aggregation proxy presents
+#: (``--requestheader-allowed-names``).
+FRONT_PROXY_CLIENT = "front-proxy-client"
 
 PrivateKey = ec.EllipticCurvePrivateKey | rsa.RSAPrivateKey
 
@@ -61,6 +64,12 @@ class Pki:
     apiserver: CertPair
     admin: CertPair
     controller_manager: CertPair
+    scheduler: CertPair
+    #: The aggregation layer: the API server proxies metrics.k8s.io to metrics-server
+    #: with this client certificate, signed by a CA of its own so that no ordinary
+    #: client certificate can assert another user's identity through the headers.
+    front_proxy_ca: CertPair
+    front_proxy_client: CertPair
     sa_private_key: Path
     sa_public_key: Path
 
@@ -136,18 +145,11 @@ def _leaf(
     return b.sign(ca_key, hashes.SHA256()), key
 
 
-def generate(directory: Path, service_ip: str = "10.0.0.1") -> Pki:
-    """Create a CA and every certificate/key the components need, in ``directory``.
-
-    ``service_ip`` is the first address of the service range: the API server
-    advertises itself there as ``kubernetes.default``, so the serving certificate
-    must name it for in-cluster clients (kind-style setups) to verify it.
-    """
-    directory.mkdir(parents=True, exist_ok=True)
-    ca_key = ec.generate_private_key(ec.SECP256R1())
-    ca_name = _name("floorcast-e2e-ca")
-    ca_cert = (
-        _builder(ca_name, ca_name, ca_key.public_key())
+def _ca(common_name: str) -> tuple[x509.Certificate, ec.EllipticCurvePrivateKey]:
+    key = ec.generate_private_key(ec.SECP256R1())
+    name = _name(common_name)
+    cert = (
+        _builder(name, name, key.public_key())
         .add_extension(x509.BasicConstraints(ca=True, path_length=None), critical=True)
         .add_extension(
             x509.KeyUsage(
@@ -163,11 +165,22 @@ def generate(directory: Path, service_ip: str = "10.0.0.1") -> Pki:
             ),
             critical=True,
         )
-        .add_extension(
-            x509.SubjectKeyIdentifier.from_public_key(ca_key.public_key()), critical=False
-        )
-        .sign(ca_key, hashes.SHA256())
+        .add_extension(x509.SubjectKeyIdentifier.from_public_key(key.public_key()), critical=False)
+        .sign(key, hashes.SHA256())
     )
+    return cert, key
+
+
+def generate(directory: Path, service_ip: str = "10.0.0.1") -> Pki:
+    """Create a CA and every certificate/key the components need, in ``directory``.
+
+    ``service_ip`` is the first address of the service range: the API server
+    advertises itself there as ``kubernetes.default``, so the serving certificate
+    must name it for in-cluster clients (kind-style setups) to verify it.
+    """
+    directory.mkdir(parents=True, exist_ok=True)
+    ca_cert, ca_key = _ca("floorcast-e2e-ca")
+    fp_cert, fp_key = _ca("floorcast-e2e-front-proxy-ca")
 
     def save(stem: str, cert: x509.Certificate, key: PrivateKey) -> CertPair:
         return CertPair(
@@ -192,12 +205,22 @@ def generate(directory: Path, service_ip: str = "10.0.0.1") -> Pki:
         _name("system:kube-controller-manager", "system:masters"),
         ExtendedKeyUsageOID.CLIENT_AUTH,
     )
+    # The scheduler logs in as the user its built-in RBAC role is bound to.
+    scheduler = _leaf(
+        ca_key, ca_cert, _name("system:kube-scheduler"), ExtendedKeyUsageOID.CLIENT_AUTH
+    )
+    fp_client = _leaf(
+        fp_key, fp_cert, _name(FRONT_PROXY_CLIENT), ExtendedKeyUsageOID.CLIENT_AUTH
+    )
     sa_key = rsa.generate_private_key(public_exponent=65537, key_size=2048)
     return Pki(
         ca=save("ca", ca_cert, ca_key),
         apiserver=save("apiserver", *server),
         admin=save("admin", *admin),
         controller_manager=save("kube-controller-manager", *kcm),
+        scheduler=save("kube-scheduler", *scheduler),
+        front_proxy_ca=save("front-proxy-ca", fp_cert, fp_key),
+        front_proxy_client=save("front-proxy-client", *fp_client),
         sa_private_key=_write(directory / "sa.key", _key_pem(sa_key)),
         sa_public_key=_write(
             directory / "sa.pub",

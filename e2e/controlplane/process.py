@@ -270,7 +270,7 @@ class HttpProbe:
 
 def wait_for(
     what: str,
-    probe: HttpProbe,
+    probe: HttpProbe | Callable[[], bool],
     watched: Sequence[ManagedProcess],
     timeout: float,
 ) -> float:
@@ -295,7 +295,8 @@ def wait_for(
             raise ControlPlaneError(
                 culprit.describe_failure(
                     f"timed out after {timeout:.0f} s waiting for {what} "
-                    f"({probe.url}; last answer: {probe.last})"
+                    f"({getattr(probe, 'url', 'probe')}; "
+                    f"last answer: {getattr(probe, 'last', 'not yet')})"
                 )
             )
         time.sleep(0.25)

@@ -4,7 +4,9 @@ etcd, kube-apiserver and kube-controller-manager, built by ``build.py``, are eno
 for what floorcast's operator touches: the API server (admission, validation of our
 CRDs, RBAC, TokenRequest) and the controllers that react to what the operator writes
 (an HPA's ``minReplicas`` scales its Deployment, whose ReplicaSet creates Pods).
-There is no scheduler and no kubelet, so Pods stay Pending; nothing here runs them.
+Without ``living=True`` there is no scheduler and no kubelet, so Pods stay Pending;
+with it, ``living.py`` adds kube-scheduler, kwok (Nodes, Pods that become Ready after
+a start-up delay, kubelet metrics) and metrics-server, and the HPA scales on metrics.
 
 Everything listens on 127.0.0.1 on random free ports, lives in one temporary run
 directory, and is torn down by :meth:`ControlPlane.stop` (also at exit and on
@@ -24,7 +26,9 @@ from pathlib import Path
 from kubernetes import client as k8s
 
 from e2e.controlplane import build, pki
+from e2e.controlplane import living as living_cluster
 from e2e.controlplane.cluster import Cluster
+from e2e.controlplane.living import LivingSettings
 from e2e.controlplane.process import (
     ControlPlaneError,
     HttpProbe,
@@ -78,8 +82,16 @@ class ControlPlane(Cluster):
         extra_controller_manager_args: Sequence[str] = (),
         ready_timeout: float = 120.0,
         keep_run_dir: bool | None = None,
+        living: bool | LivingSettings = False,
     ) -> None:
         self._binaries = binaries
+        if living is True:
+            living = LivingSettings()
+        self.living: LivingSettings | None = living or None
+        if self.living and "node-lifecycle-controller" not in controllers:
+            # The API server taints a new Node not-ready; this controller lifts the
+            # taint once kwok reports the Node Ready (and would evict from dead ones).
+            controllers = (*controllers, "node-lifecycle-controller")
         self.controllers = tuple(controllers)
         self.hpa_sync_period = hpa_sync_period
         self.extra_apiserver_args = list(extra_apiserver_args)
@@ -104,6 +116,9 @@ class ControlPlane(Cluster):
         began = time.monotonic()
         bins = self._binaries or build.ensure_built()
         self._binaries = bins
+        if self.living:
+            build.ensure_kwok()
+            build.ensure_metrics_server()
         for attempt in range(1, _PORT_ATTEMPTS + 1):
             self.run_dir = Path(tempfile.mkdtemp(prefix="floorcast-cp-"))
             self._cleanup = register_cleanup(self.stop)
@@ -184,6 +199,16 @@ class ControlPlane(Cluster):
                 f"--service-account-key-file={keys.sa_public_key}",
                 f"--service-account-signing-key-file={keys.sa_private_key}",
                 f"--service-cluster-ip-range={SERVICE_CIDR}",
+                # The aggregation layer (metrics.k8s.io is served by metrics-server):
+                # the API server proxies with the front-proxy client certificate and
+                # passes the caller's identity in these headers.
+                f"--requestheader-client-ca-file={keys.front_proxy_ca.cert}",
+                f"--requestheader-allowed-names={pki.FRONT_PROXY_CLIENT}",
+                "--requestheader-username-headers=X-Remote-User",
+                "--requestheader-group-headers=X-Remote-Group",
+                "--requestheader-extra-headers-prefix=X-Remote-Extra-",
+                f"--proxy-client-cert-file={keys.front_proxy_client.cert}",
+                f"--proxy-client-key-file={keys.front_proxy_client.key}",
                 "--authorization-mode=Node,RBAC",
                 "--allow-privileged=true",
                 # Without these, a stop with clients watching (the controller-manager,
@@ -229,6 +254,22 @@ class ControlPlane(Cluster):
             [self._procs["etcd"], self._procs["kube-apiserver"], kcm],
             self.ready_timeout,
         )
+        if self.living:
+            living_cluster.start(self, run, logs, self.living)
+
+    @property
+    def pki(self) -> pki.Pki:
+        if self._pki is None:
+            raise ControlPlaneError("control plane not started")
+        return self._pki
+
+    @property
+    def binaries(self) -> build.Binaries:
+        return self._binaries or build.binaries()
+
+    def add_process(self, name: str, logs: Path, argv: list[str]) -> ManagedProcess:
+        """Register one more component (started by the caller, stopped with the rest)."""
+        return self._add(name, logs, argv)
 
     def _add(self, name: str, logs: Path, argv: list[str]) -> ManagedProcess:
         proc = ManagedProcess(name, argv, logs / f"{name}.log")

@@ -14,7 +14,8 @@ Simplifications (each also marked where it applies):
   serving capacity from then on; the controller's CPU initialization period and
   initial readiness delay are folded into that one delay.
 * The metric a sync reads is the usage of the previous sync interval (usage is a
-  rate measured over a past window); metrics-server's own resolution is not modelled.
+  rate measured over a past window) or, with ``metric_resolution_seconds``, the
+  usage at the newest metrics-server scrape before it (see ``_seen``).
 * Removing a pod frees its capacity at once (no graceful-termination tail), and a
   scale-down removes not-ready pods first (the ReplicaSet controller's deletion
   order, from memory).
@@ -76,6 +77,10 @@ class HpaConfig:
     scale_up: ScalingRules = DEFAULT_SCALE_UP
     scale_down: ScalingRules = DEFAULT_SCALE_DOWN
     sync_seconds: int = DEFAULT_SYNC_SECONDS
+    #: How often the metrics pipeline samples usage (metrics-server's
+    #: --metric-resolution, 15 s by default per its documentation). 0 keeps the
+    #: simpler rule: a sync sees the previous interval's usage.
+    metric_resolution_seconds: float = 0.0
 
 
 def desired_replicas(
@@ -185,8 +190,7 @@ def simulate(
     out_n = np.empty((b, t_len), dtype=np.int64)
     out_r = np.empty((b, t_len), dtype=np.int64)
     scaled = np.zeros((b, t_len), dtype=bool)
-    # Simplification: the metric a sync reads is the previous interval's usage.
-    seen = np.concatenate([dem[:, :1], dem[:, :-1]], axis=1)
+    seen = _seen(dem, hpa)
     k = 0
     while k < t_len:
         stop = st.advance(k, seen, mins, per_replica)
@@ -199,6 +203,21 @@ def simulate(
         out_n[:, k], out_r[:, k] = st.n, st.ready
         k += 1
     return Trace(replicas=out_n, ready=out_r, scaled=scaled)
+
+
+def _seen(dem: np.ndarray, hpa: HpaConfig) -> np.ndarray:
+    """The usage each sync reads: the previous interval's, or — with a metric
+    resolution — the usage at the newest scrape before the previous interval ended
+    (metrics-server serves the rate between its last two scrapes; with usage that
+    is constant between scrapes, that is the usage at the newest one)."""
+    t_len = dem.shape[1]
+    k = np.arange(t_len)
+    prev = np.maximum(k - 1, 0)
+    res = hpa.metric_resolution_seconds
+    if res > 0:
+        per = res / hpa.sync_seconds
+        prev = np.minimum((np.floor(prev / per + 1e-9) * per).astype(np.int64), prev)
+    return dem[:, prev]
 
 
 class _State:

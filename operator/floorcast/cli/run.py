@@ -17,7 +17,8 @@ def _interval(value: str) -> float:
 
 
 @click.command("run", help="Run the operator (kopf) against the current cluster.")
-@click.option("--dry-run", is_flag=True, help="Operator-wide: never write to any HPA.")
+@click.option("--dry-run", is_flag=True,
+              help="Operator-wide: never raise a floor (one raised earlier is still restored).")
 @click.option(
     "--namespace",
     "namespaces",

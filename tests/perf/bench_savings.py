@@ -28,7 +28,9 @@ Targets (issue 13): at least 30 % saving at equal saturation on every bursty
 dataset, at least 80 % of the oracle's saving on smooth ones, and floorcast's
 saturation at most 10 % of the HPA alone's at the same target.
 
-Run: python tests/perf/bench_savings.py [--quick] (``--quick``: seasonal naive).
+Run: python tests/perf/bench_savings.py [--quick] [--sample 15min] [--grid]
+(``--quick``: seasonal naive; ``--grid``: also holdTime × headroom × band, the
+frontier the defaults are chosen from, docs/backtest.md).
 """
 
 from __future__ import annotations
@@ -139,10 +141,25 @@ def report(label: str, r: replay.Result) -> dict[str, float | None]:
     }
 
 
+def grid(d: Dataset, h: Series, method: str, sample: pd.Timedelta) -> None:
+    """holdTime {0, 15m} × headroom {0, 0.05, 0.1, 0.2} × (upper band, value)."""
+    knobs = [replay.Knobs(timedelta(minutes=5), hd, timedelta(minutes=m), TARGET)
+             for m in (0, 15) for hd in (0.0, 0.05, 0.1, 0.2)]  # fmt: skip
+    for upper in (True, False):
+        r = replay.run(spec(upper=upper), h, setup(d, method, sample), sweep=knobs)
+        cells = "  ".join(
+            f"hold {int(x['holdTime'].total_seconds() // 60)}m/head {x['headroom']:g}: "
+            f"{x['under_capacity_minutes']:.0f} min {pct(x['saving_at_equal_saturation'])}"
+            for x in r.sweep
+        )
+        print(f"  grid ({'band' if upper else 'value'}) {cells}")
+
+
 def main() -> int:
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="seasonal naive instead of auto")
     ap.add_argument("--sample", default="5min", help="service time per sample [5min]")
+    ap.add_argument("--grid", action="store_true", help="also the holdTime × headroom grid")
     a = ap.parse_args()
     method = "seasonal-naive" if a.quick else "auto"
     sample = pd.Timedelta(a.sample)
@@ -168,6 +185,8 @@ def main() -> int:
                                                   setup(d, method, sample)))  # fmt: skip
         before = replay.run(spec(), h, setup(d, method, sample, plan_step=sample))
         report("planned per step", before)
+        if a.grid:
+            grid(d, h, method, sample)
         print(f"  time {time.perf_counter() - t0:.1f} s")
         goal = "saving >= 30 %" if d.kind == "bursty" else "oracle captured >= 80 %"
         met = (res["saving"] or -1) >= 0.3 if d.kind == "bursty" else (res["capture"] or 0) >= 0.8

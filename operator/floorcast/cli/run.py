@@ -32,8 +32,9 @@ def _interval(value: str) -> float:
     "--allow-url-host",
     "hosts",
     multiple=True,
-    metavar="HOST",
-    help="A host forecast URLs may use (repeatable); none by default.",
+    metavar="HOST|URL",
+    help="A host forecast URLs may use, or https://host[:port]/prefix to pin scheme, port "
+    "and path prefix (repeatable); none by default.",
 )
 @click.option(
     "--metrics-port",
@@ -76,6 +77,9 @@ def _interval(value: str) -> float:
     metavar="ID",
     help="This replica's name in the Lease (default: hostname-pid).",
 )
+@click.option("--https-only", is_flag=True, help="Refuse plain-http forecast URLs.")
+@click.option("--ca-bundle", type=click.Path(dir_okay=False, exists=True), default=None,
+              help="PEM file of CAs trusted for https forecast URLs [system store].")
 @click.option(
     "--max-api-connections",
     type=CONNECTIONS,
@@ -87,14 +91,21 @@ def _interval(value: str) -> float:
 def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interval: str,
         hosts: tuple[str, ...], metrics_port: int, liveness_port: int, log_format: str,
         kubeconfig: str | None, lease_name: str | None, lease_namespace: str | None,
-        identity: str | None, max_api_connections: int) -> None:  # fmt: skip
+        identity: str | None, https_only: bool, ca_bundle: str | None,
+        max_api_connections: int) -> None:  # fmt: skip
     from floorcast.controller.app import run as run_operator
-    from floorcast.controller.settings import Settings
+    from floorcast.controller.settings import Settings, parse_url_rule
 
     if all_namespaces and namespaces:
         raise click.UsageError("--all-namespaces and --namespace exclude each other")
     if (lease_namespace or identity) and not lease_name:
         raise click.UsageError("--leader-elect-namespace and --identity need --leader-elect")
+    for h in hosts:
+        try:
+            parse_url_rule(h)
+        except InputError as e:
+            raise click.BadParameter(e.problem.split(": ", 1)[-1],
+                                     param_hint="--allow-url-host") from None
     seconds = _interval(interval)
     if seconds < 1:
         raise click.BadParameter("must be at least 1s", param_hint="--interval")
@@ -103,5 +114,5 @@ def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interv
         dry_run=dry_run, metrics_port=metrics_port or None, liveness_port=liveness_port or None,
         log_format=log_format, kubeconfig=kubeconfig, lease_name=lease_name,
         lease_namespace=lease_namespace, identity=identity,
-        max_api_connections=max_api_connections,
+        max_api_connections=max_api_connections, https_only=https_only, ca_bundle=ca_bundle,
     ))  # fmt: skip

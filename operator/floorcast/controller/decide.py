@@ -70,11 +70,24 @@ def _peak(plan: FloorPlan, now: pd.Timestamp) -> pd.Timestamp:
     return s.start + j * s.step
 
 
+#: How far ahead of the operator's clock a forecast's ``generated`` may be: clocks
+#: drift by seconds, not minutes (common practice, no source). A forecast "from the
+#: future" would otherwise pass every ``maxAge`` check for as long as it claims.
+MAX_CLOCK_SKEW = pd.Timedelta(minutes=5)
+
+
 def _forecast_problem(obs: Observed, policy: Policy) -> tuple[str, str] | None:
     f = obs.forecast
     if f.series is None:
         return (f.reason or FORECAST_MISSING, f.message or "no forecast")
     spec = policy.spec
+    if f.series.generated is not None and f.series.generated > obs.now + MAX_CLOCK_SKEW:
+        return (
+            FORECAST_INVALID,
+            f"forecast generated at {iso(f.series.generated)} is more than "
+            f"{format_duration(MAX_CLOCK_SKEW)} in the future (now {iso(obs.now)}); "
+            "check the producer's clock",
+        )
     if f.series.generated is not None and obs.now - f.series.generated > spec.forecast.max_age:
         return (
             FORECAST_STALE,

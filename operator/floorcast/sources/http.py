@@ -1,8 +1,10 @@
 """Forecasts fetched over HTTP(S), only from hosts the operator's owner allowed.
 
 The operator runs with cluster credentials inside the cluster network; a policy author
-who could make it fetch any URL could use it to probe internal services. So the host
-must be on the operator-level allow-list, redirects are never followed (a redirect
+who could make it fetch any URL could use it to probe internal services. So the URL
+must match the operator-level allow-list (a host, or a pinned scheme, port and path
+prefix: ``Settings.url_refusal``), plain http can be refused (``--https-only``), a
+private CA can be trusted (``--ca-bundle``), redirects are never followed (a redirect
 could leave the list), the body is capped and every request has a timeout.
 
 Every policy is reconciled on the timer, so an unchanged forecast would be downloaded
@@ -15,7 +17,9 @@ Failures are never cached: the next reconcile tries again.
 
 from __future__ import annotations
 
+import functools
 import hashlib
+import ssl
 import threading
 import time
 import urllib.error
@@ -41,6 +45,15 @@ class _NoRedirect(urllib.request.HTTPRedirectHandler):
 
 
 _OPENER = urllib.request.build_opener(_NoRedirect)
+
+
+@functools.lru_cache(maxsize=4)
+def _opener(ca_bundle: str | None) -> urllib.request.OpenerDirector:
+    """One opener per CA bundle (the SSL context loads the file once)."""
+    if ca_bundle is None:
+        return _OPENER
+    context = ssl.create_default_context(cafile=ca_bundle)
+    return urllib.request.build_opener(_NoRedirect, urllib.request.HTTPSHandler(context=context))
 
 
 @dataclass(frozen=True)
@@ -87,10 +100,9 @@ def forecast_from_url(url: str, settings: Settings, cache: UrlCache | None = Non
     except ValueError:
         host = None
     shown = redact(url) if host else url[:80]
-    if not settings.url_host_allowed(host):
-        return ForecastState(reason=URL_NOT_ALLOWED,
-                             message=f"host {host!r} of {shown} is not in the operator's "
-                                     "--allow-url-host list; not fetched")  # fmt: skip
+    refused = settings.url_refusal(url)
+    if refused is not None:
+        return ForecastState(reason=URL_NOT_ALLOWED, message=f"{shown} {refused}; not fetched")
     cap = settings.max_forecast_bytes
     known = cache.get(url) if cache is not None else None
     request = urllib.request.Request(url)
@@ -100,7 +112,7 @@ def forecast_from_url(url: str, settings: Settings, cache: UrlCache | None = Non
         request.add_header("If-Modified-Since", known.last_modified)
     limit = settings.url_timeout_seconds
     try:
-        with _OPENER.open(request, timeout=limit) as resp:
+        with _opener(settings.ca_bundle).open(request, timeout=limit) as resp:
             body = _read(resp, cap + 1, time.monotonic() + limit)
             etag, modified = resp.headers.get("ETag"), resp.headers.get("Last-Modified")
     except _TooSlow:

@@ -154,8 +154,8 @@ def test_parsed_cache_is_safe_across_threads():
     def hammer(k: int) -> None:
         try:
             for i in range(5000):
-                cache.put(("ns", "fc", "k", str((i * 7 + k) % 200)), state)
-                cache.get(("ns", "fc", "k", str((i * 3 + k) % 200)))
+                cache.put(("ns", f"fc{(i * 7 + k) % 200}", "k", "1"), state)
+                cache.get(("ns", f"fc{(i * 3 + k) % 200}", "k", "1"))
         except Exception as e:  # pragma: no cover - the failure being tested for
             errors.append(e)
 
@@ -164,4 +164,24 @@ def test_parsed_cache_is_safe_across_threads():
         t.start()
     for t in threads:
         t.join()
-    assert errors == [] and len(cache._items) == 64
+    assert errors == [] and len(cache) == 64 and cache.points == 64 * 2
+
+
+def test_a_new_resource_version_replaces_the_cached_one():
+    # A tenant rewriting one forecast must not fill the cache with old versions.
+    cache = ParsedCache()
+    for rv in range(50):
+        forecast_from_configmap({"f.json": _doc()}, namespace="ns", name="fc", key="f.json",
+                                max_bytes=1 << 20, resource_version=str(rv), cache=cache)
+    assert len(cache) == 1 and cache.points == 2
+    assert cache.get(("ns", "fc", "f.json", "49")) is not None
+    assert cache.get(("ns", "fc", "f.json", "48")) is None
+
+
+def test_cached_points_are_bounded():
+    cache = ParsedCache(max_points=5)
+    state = cm(_doc())  # 2 points
+    for i in range(10):
+        cache.put(("ns", f"fc{i}", "k", "1"), state)
+    assert cache.points <= 5 and len(cache) == 2
+    assert cache.get(("ns", "fc9", "k", "1")) is state  # the newest stays

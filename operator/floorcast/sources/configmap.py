@@ -58,29 +58,80 @@ def public_message(e: InputError, source: str) -> str:
     return f"{where}: not a valid forecast"
 
 
-class ParsedCache:
-    """A small LRU of parse results keyed by (namespace, name, key, resourceVersion),
-    shared by kopf's worker threads, hence the lock (an OrderedDict reordered from two
-    threads at once can lose entries or raise)."""
+#: Parsed points all caches together may hold: 4 million points are about 100 MiB
+#: (values, bands, the parse's own arrays), a fifth of the chart's 512Mi limit. Without
+#: it, one tenant rewriting a 1 MiB forecast could fill 2048 cache entries with
+#: superseded versions (about 2 GiB).
+MAX_CACHED_POINTS = 4_000_000
 
-    def __init__(self, size: int = 2048) -> None:
-        self._size = size
-        self._items: OrderedDict[tuple[str, ...], ForecastState] = OrderedDict()
+
+def points_of(state: ForecastState) -> int:
+    s = state.series
+    if s is None:
+        return 0
+    return len(s) * (1 + (s.lower is not None) + (s.upper is not None))
+
+
+class BoundedLru:
+    """An LRU bounded by entry count and by total parsed points, shared by kopf's worker
+    threads, hence the lock (an OrderedDict reordered from two threads at once can lose
+    entries or raise)."""
+
+    def __init__(self, size: int = 2048, max_points: int = MAX_CACHED_POINTS) -> None:
+        self._size, self._max_points, self._points = size, max_points, 0
+        self._items: OrderedDict[object, tuple[object, int]] = OrderedDict()
         self._lock = threading.Lock()
 
-    def get(self, key: tuple[str, ...]) -> ForecastState | None:
+    def get(self, key: object) -> object | None:
         with self._lock:
             hit = self._items.get(key)
-            if hit is not None:
-                self._items.move_to_end(key)
-            return hit
+            if hit is None:
+                return None
+            self._items.move_to_end(key)
+            return hit[0]
+
+    def put(self, key: object, value: object, points: int) -> None:
+        with self._lock:
+            old = self._items.pop(key, None)
+            self._points -= old[1] if old else 0
+            if points > self._max_points:
+                return  # larger than the whole budget: never cached
+            self._items[key] = (value, points)
+            self._points += points
+            while len(self._items) > self._size or self._points > self._max_points:
+                _, (_, p) = self._items.popitem(last=False)
+                self._points -= p
+
+    @property
+    def points(self) -> int:
+        return self._points
+
+    def __len__(self) -> int:
+        return len(self._items)
+
+
+class ParsedCache:
+    """Parse results per ConfigMap key, valid for one resourceVersion: a new version
+    replaces the old entry instead of adding one, so superseded forecasts never pile up."""
+
+    def __init__(self, size: int = 2048, max_points: int = MAX_CACHED_POINTS) -> None:
+        self._lru = BoundedLru(size, max_points)
+
+    def get(self, key: tuple[str, ...]) -> ForecastState | None:
+        hit = self._lru.get(key[:-1])
+        if isinstance(hit, tuple) and hit[0] == key[-1]:
+            return hit[1]
+        return None
 
     def put(self, key: tuple[str, ...], value: ForecastState) -> None:
-        with self._lock:
-            self._items[key] = value
-            self._items.move_to_end(key)
-            while len(self._items) > self._size:
-                self._items.popitem(last=False)
+        self._lru.put(key[:-1], (key[-1], value), points_of(value))
+
+    def __len__(self) -> int:
+        return len(self._lru)
+
+    @property
+    def points(self) -> int:
+        return self._lru.points
 
 
 def parse_state(text: str, source: str, max_bytes: int) -> ForecastState:

@@ -20,11 +20,9 @@ from __future__ import annotations
 import functools
 import hashlib
 import ssl
-import threading
 import time
 import urllib.error
 import urllib.request
-from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any
 from urllib.parse import urlsplit
@@ -36,7 +34,7 @@ from floorcast.controller.state import (
     URL_NOT_ALLOWED,
     ForecastState,
 )
-from floorcast.sources.configmap import parse_state
+from floorcast.sources.configmap import MAX_CACHED_POINTS, BoundedLru, parse_state, points_of
 
 
 class _NoRedirect(urllib.request.HTTPRedirectHandler):
@@ -65,26 +63,18 @@ class _Fetched:
 
 
 class UrlCache:
-    """The last good forecast per URL (LRU); shared by the reconcile threads."""
+    """The last good forecast per URL; an LRU bounded by entries and parsed points
+    (``configmap.MAX_CACHED_POINTS``), shared by the reconcile threads."""
 
-    def __init__(self, size: int = 2048) -> None:
-        self._size = size
-        self._items: OrderedDict[str, _Fetched] = OrderedDict()
-        self._lock = threading.Lock()
+    def __init__(self, size: int = 2048, max_points: int = MAX_CACHED_POINTS) -> None:
+        self._lru = BoundedLru(size, max_points)
 
     def get(self, url: str) -> _Fetched | None:
-        with self._lock:
-            hit = self._items.get(url)
-            if hit is not None:
-                self._items.move_to_end(url)
-            return hit
+        hit = self._lru.get(url)
+        return hit if isinstance(hit, _Fetched) else None
 
     def put(self, url: str, value: _Fetched) -> None:
-        with self._lock:
-            self._items[url] = value
-            self._items.move_to_end(url)
-            while len(self._items) > self._size:
-                self._items.popitem(last=False)
+        self._lru.put(url, value, points_of(value.state))
 
 
 def redact(url: str) -> str:

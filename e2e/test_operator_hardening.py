@@ -216,3 +216,117 @@ def test_bad_forecast_restores_and_does_not_echo_it(env: Env, bad: str) -> None:
                     "Ready reason ForecastInvalid")  # fmt: skip
     assert secret not in cond["message"] and "s3cr3t" not in json.dumps(env.policy("p"))
     assert cond["message"].startswith(f"ConfigMap {env.namespace}/web-forecast key f.json")
+
+
+# ------------------------------------------- item 4: a tenant cannot take the operator down
+
+
+def _chart_memory_limit_mib() -> float:
+    import yaml
+
+    from e2e.operator_env import ROOT
+
+    values = yaml.safe_load((ROOT / "charts" / "floorcast" / "values.yaml").read_text())
+    text = values["resources"]["limits"]["memory"]
+    assert text.endswith("Mi"), text
+    return float(text[:-2])
+
+
+def _worst_forecast() -> str:
+    """As large as a ConfigMap forecast may be (just under 1 MiB) at a 1 ms step, so
+    that a 168 h holdTime spans 6e8 steps: before the window bound this one policy
+    allocated gigabytes. It starts a moment ago and covers about 20 s."""
+    import pandas as pd
+
+    start = pd.Timestamp.now(tz="UTC").floor("s") - pd.Timedelta("2s")
+    t0 = start.strftime("%Y-%m-%dT%H:%M:%S")
+    pts = []
+    size = 200
+    for i in range(100_000):
+        p = f'{{"t": "{t0}.{i % 1000:03d}Z", "value": 1e300}}'
+        if i >= 1000:  # past the first second: write whole instants
+            sec = start + pd.Timedelta(milliseconds=i)
+            p = f'{{"t": "{sec.strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3]}Z", "value": 1e300}}'
+        size += len(p) + 2
+        if size > 1_000_000:
+            break
+        pts.append(p)
+    gen = start.strftime("%Y-%m-%dT%H:%M:%SZ")
+    return f'{{"step": "1ms", "generated": "{gen}", "points": [' + ", ".join(pts) + "]}"
+
+
+def _peak_rss_mib(pid: int) -> float:
+    with open(f"/proc/{pid}/status") as f:
+        for line in f:
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024
+    raise AssertionError("no VmHWM")
+
+
+def test_the_worst_legal_tenant_leaves_memory_in_bounds_and_others_reconciling(env: Env) -> None:
+    limit = _chart_memory_limit_mib()
+    raised(env)  # the well-behaved tenant: web, floor 7
+    proc = env.procs[-1]
+    core = k8s.CoreV1Api(env.api)
+    for i in range(3):
+        name = f"big{i}"
+        env.create_workload(name)
+        text = _worst_forecast()  # fresh: it covers only the next ~18 s
+        assert 900_000 < len(text) <= 1_000_000
+        core.create_namespaced_config_map(env.namespace, {
+            "metadata": {"name": f"{name}-fc", "labels": {"floorcast.dev/forecast": "true"}},
+            "data": {"f.json": text}})  # fmt: skip
+        body = policy_body(name, target=name,
+                           forecast={"configMapRef": {"name": f"{name}-fc", "key": "f.json"},
+                                     "maxAge": "168h"})  # fmt: skip
+        body["spec"].update({"leadTime": "1s", "holdTime": "168h", "headroom": 10,
+                             "plannedEvents": [{"name": f"e{j}", "start": "2026-01-01T00:00:00Z",
+                                                "end": "2036-01-01T00:00:00Z", "factor": 1000}
+                                               for j in range(100)]})  # fmt: skip
+        env.create_policy(body)
+    for i in range(3):  # each was planned: a need of 1e300 × 11 × 1000 is the ceiling
+        env.wait(lambda i=i: env.hpa(f"big{i}").spec.min_replicas == 10,
+                 f"big{i} raised to its HPA's maxReplicas")  # fmt: skip
+    # The other tenant still reconciles: a new peak moves its floor.
+    env.put_forecast(forecast_json(peak=8.5))
+    env.wait(min_replicas(env, 9), "the well-behaved policy follows its new forecast (9)")
+    peak = _peak_rss_mib(proc.pid)
+    print(f"operator peak RSS {peak:.0f} MiB with 3 worst-case tenants (chart limit {limit:.0f})")
+    assert proc.poll() is None and peak < limit
+
+
+# ------------------------------------------- item 10: GitOps tools and floorcast's field
+
+
+def test_server_side_apply_without_min_replicas_keeps_floorcasts_value(env: Env) -> None:
+    env.put_forecast(forecast_json())
+    manifest = {
+        "apiVersion": "autoscaling/v2", "kind": "HorizontalPodAutoscaler",
+        "metadata": {"name": "web", "namespace": env.namespace},
+        "spec": {"scaleTargetRef": {"apiVersion": "apps/v1", "kind": "Deployment",
+                                    "name": "web"},
+                 "minReplicas": BASELINE, "maxReplicas": 10},
+    }  # fmt: skip
+
+    def apply(doc: dict[str, Any]) -> None:
+        env.hpas.patch_namespaced_horizontal_pod_autoscaler(
+            "web", env.namespace, doc, field_manager="gitops-owner",
+            _content_type="application/apply-patch+yaml")  # fmt: skip
+
+    apply(manifest)
+    env.start_operator()
+    env.create_policy(policy_body("p"))
+    env.wait(min_replicas(env, 7), "HPA minReplicas raised to 7")
+    owners = {m.manager: json.dumps(m.fields_v1) for m in env.hpa().metadata.managed_fields}
+    assert '"f:minReplicas"' in owners["floorcast"]
+    assert '"f:minReplicas"' not in owners.get("gitops-owner", "")
+    # The owner's manifest with minReplicas left out (as docs/operations.md advises):
+    # a re-sync keeps floorcast's value, and our annotations.
+    without = json.loads(json.dumps(manifest))
+    del without["spec"]["minReplicas"]
+    apply(without)
+    apply(without)
+    time.sleep(5)  # two operator ticks
+    assert env.hpa().spec.min_replicas == 7
+    assert ours(env)["floorcast.dev/baseline"] == str(BASELINE)
+    assert env.hpa().spec.max_replicas == 10  # the owner's fields stay the owner's

@@ -138,6 +138,16 @@ def test_what_the_api_server_accepts_policy_py_accepts(api_client, operator_clus
                                  f"({why}) but policy.py {'accepts' if local else 'refuses'} "
                                  f"({problem}): {json.dumps(spec)}")  # fmt: skip
 
+    # Every edge value in every duration field, deterministically, before the random ones.
+    for value in EDGE_DURATIONS:
+        for field in ("leadTime", "holdTime", "maxAge"):
+            base: dict[str, Any] = {"targetRef": {"name": "web"}, "capacity": {"perReplica": 1},
+                                    "forecast": {"configMapRef": {"name": "fc", "key": "k"}}}
+            if field == "maxAge":
+                base["forecast"]["maxAge"] = value
+            else:
+                base[field] = value
+            check.hypothesis.inner_test(base)  # type: ignore[attr-defined]
     check()
     print(f"policy bounds: {len(tried)} specs tried against the API server, "
           f"{sum(tried)} accepted, {len(tried) - sum(tried)} refused")

@@ -142,6 +142,16 @@ def test_status_message_names_row_and_column():
     assert js.message.startswith("ConfigMap ns/fc key f.json, line 2, column ")
 
 
+@pytest.mark.parametrize(("rows", "kind"), [
+    (["12:00", "12:05", "12:20"], "row 4: gap between points"),
+    (["12:00", "12:05", "12:05"], "row 4: timestamps duplicated, unsorted or off the grid"),
+    (["12:00", "12:05", "12:07"], "row 3: timestamps duplicated, unsorted or off the grid"),
+])  # fmt: skip
+def test_status_message_kinds(rows, kind):
+    text = "timestamp,value\n" + "".join(f"2026-03-02T{r}:00Z,1\n" for r in rows)
+    assert cm_csv(text).message.startswith(f"ConfigMap ns/fc key f.csv, {kind}")
+
+
 def cm_csv(text):
     return forecast_from_configmap({"f.csv": text}, namespace="ns", name="fc", key="f.csv",
                                    max_bytes=1 << 20)  # fmt: skip

@@ -34,11 +34,11 @@ _KINDS = (
     (r"invalid JSON", "invalid JSON"),
     (r"header|column", "bad CSV header or column count"),
     (r"unknown (field|key)", "unknown field"),
-    (r"'step'|step", "bad or inconsistent step"),
-    (r"gap", "gap between points (forecasts must be gap-free)"),
-    (r"lower|upper", "bad lower/upper band"),
+    (r"^gap of ", "gap between points (forecasts must be gap-free)"),
     (r"duplicate|earlier|sorted|same .* slot|irregular", "timestamps duplicated, unsorted "
                                                          "or off the grid"),
+    (r"'step'|step", "bad or inconsistent step"),
+    (r"lower|upper", "bad lower/upper band"),
     (r"timestamp|'generated'|date|offset|'t'", "bad timestamp"),
     (r"value|number|NaN|infinite|negative", "bad value"),
 )  # fmt: skip

@@ -19,21 +19,35 @@ Decisions (the CRD schema mirrors them):
 
 from __future__ import annotations
 
-import difflib
-import math
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import timedelta
 from pathlib import Path
-from typing import Any, Literal, NoReturn, cast
+from typing import Any, Literal, cast
 from urllib.parse import urlsplit
 
 import pandas as pd
 import yaml
 
-from floorcast.durations import format_duration, parse_duration
-from floorcast.errors import InputError
+from floorcast.durations import format_duration
+from floorcast.policy_fields import (  # noqa: F401  (MAX_* and PolicyError re-exported)
+    _M,
+    MAX_DURATION,
+    MAX_DURATION_LENGTH,
+    MAX_EVENT_NAME_LENGTH,
+    MAX_EVENTS,
+    MAX_FACTOR,
+    MAX_HEADROOM,
+    MAX_PER_REPLICA,
+    MAX_REPLICAS,
+    MAX_TIME_LENGTH,
+    MAX_URL_LENGTH,
+    PolicyError,
+    _describe,
+    _Reader,
+    _Rule,
+)
 
 API_VERSION = "floorcast.dev/v1alpha1"
 KIND = "ForecastScalingPolicy"
@@ -58,37 +72,9 @@ _SPEC_FIELDS = (
     "targetRef", "forecast", "capacity", "leadTime", "holdTime", "headroom",
     "useUpperBound", "minReplicas", "maxReplicas", "mode", "plannedEvents",
 )  # fmt: skip
-#: maxLength in the CRD; every other string field allows 253 (a DNS subdomain name).
-MAX_URL_LENGTH, MAX_EVENT_NAME_LENGTH = 2048, 63
-#: maxLength of every duration and event time in the CRD.
-MAX_DURATION_LENGTH = MAX_TIME_LENGTH = 64
-#: Upper bounds, the same in the CRD (``maximum`` and CEL rules; tests/test_crd.py and
-#: the server-side property test hold them together). They are far above any sensible
-#: setting and low enough that no product of them can overflow planning: a week of
-#: lead, hold or age; 1000 % headroom; a 1000× event; int32 replica counts as the HPA has.
-MAX_DURATION = timedelta(days=7)
-MAX_HEADROOM = 10.0
-MAX_FACTOR = 1000.0
-MAX_PER_REPLICA = 1e12
-MAX_REPLICAS = 2**31 - 1
-MAX_EVENTS = 100
 _DNS_SUBDOMAIN = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$")
 _DNS_LABEL = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?$")
 _CONFIGMAP_KEY = re.compile(r"^[-._a-zA-Z0-9]+$")
-_RFC3339 = re.compile(r"^\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d+)?([Zz]|[+-]\d{2}:\d{2})$")
-
-
-class PolicyError(InputError):
-    """A policy mistake; ``path`` and ``line`` let the operator put it in a condition."""
-
-    def __init__(self, problem: str, *, source: str | None = None, path: str | None = None,
-                 line: int | None = None):  # fmt: skip
-        self.path = path
-        self.line = line
-        where = (f"line {line}: " if line is not None else "") + (f"{path}: " if path else "")
-        super().__init__(where + problem, source=source)
-
-
 @dataclass(frozen=True)
 class ConfigMapRef:
     name: str
@@ -158,122 +144,7 @@ def spec_defaults() -> dict[str, Any]:
     }
 
 
-def _describe(value: object) -> str:
-    if value is None or isinstance(value, bool):
-        return "null" if value is None else f"boolean {str(value).lower()}"
-    if isinstance(value, int | float | str):
-        return f"{'string' if isinstance(value, str) else 'number'} {value!r}"
-    if isinstance(value, Mapping):
-        return "a mapping"
-    return "a list" if isinstance(value, list | tuple) else type(value).__name__
-
-
-_M = Mapping[str, Any]
-_Rule = tuple[re.Pattern[str], str]
-_REQUIRED: Any = object()
 _NAME: _Rule = (_DNS_SUBDOMAIN, "a Kubernetes object name (lower-case letters, digits, '-', '.')")
-
-
-@dataclass(frozen=True)
-class _Reader:
-    """Getters take a mapping and the field's full path (the last part is the key), so every
-    check is one call; they return ``default`` for an absent or null field."""
-
-    source: str
-
-    def fail(self, path: str, problem: str) -> NoReturn:
-        raise PolicyError(problem, source=self.source, path=path)
-
-    def mapping(self, value: object, path: str, allowed: Sequence[str]) -> _M:
-        if not isinstance(value, Mapping):
-            self.fail(path, f"expected a mapping, got {_describe(value)}")
-        for key in value:
-            if key not in allowed:
-                hint = difflib.get_close_matches(str(key), allowed, n=1)
-                maybe = f" (did you mean {hint[0]!r}?)" if hint else ""
-                where, fields = f"{path}.{key}".lstrip("."), ", ".join(sorted(allowed))
-                self.fail(where, f"unknown field{maybe}; allowed here: {fields}")
-        return cast(_M, value)
-
-    def take(self, m: _M, path: str, default: Any = _REQUIRED) -> Any:
-        value = m.get(path.rpartition(".")[2])
-        if value is None and default is _REQUIRED:
-            self.fail(path, "required field is missing")
-        return value
-
-    def child(self, m: _M, path: str, allowed: Sequence[str]) -> _M:
-        return self.mapping(self.take(m, path), path, allowed)
-
-    def string(self, m: _M, path: str, rule: _Rule | None = None, default: Any = _REQUIRED,
-               max_length: int = 253) -> Any:  # fmt: skip
-        """A non-empty string; ``max_length`` is the CRD's maxLength for the field."""
-        value = self.take(m, path, default)
-        if value is None:
-            return default
-        if not isinstance(value, str) or not value.strip():
-            self.fail(path, f"expected a non-empty string, got {_describe(value)}")
-        if len(value) > max_length:
-            self.fail(path, f"is {len(value)} characters long; at most {max_length} allowed")
-        if rule is not None and not rule[0].match(value):
-            self.fail(path, f"{value!r} is not valid; expected {rule[1]}")
-        return value
-
-    def number(self, m: _M, path: str, *, above: float, maximum: float,
-               inclusive: bool = False, default: Any = _REQUIRED) -> Any:  # fmt: skip
-        """A number in (above, maximum] or [above, maximum]; a 400-digit integer is
-        compared exactly (never converted to float first, which would overflow)."""
-        value = self.take(m, path, default)
-        if value is None:
-            return default
-        if isinstance(value, bool) or not isinstance(value, int | float):
-            self.fail(path, f"expected a number, got {_describe(value)}")
-        finite = not isinstance(value, float) or math.isfinite(value)
-        if not finite or value < above or (value == above and not inclusive) or value > maximum:
-            op = ">=" if inclusive else ">"
-            shown = repr(value) if len(repr(value)) <= 40 else repr(value)[:37] + "..."
-            self.fail(path, f"expected a finite number {op} {above:g} and <= {maximum:g}, "
-                            f"got {shown}")  # fmt: skip
-        return float(value)
-
-    def integer(self, m: _M, path: str, *, minimum: int) -> int | None:
-        value = self.take(m, path, None)
-        if value is not None and (type(value) is not int or not minimum <= value <= MAX_REPLICAS):
-            shown = _describe(value) if len(str(value)) <= 40 else "a longer number"
-            self.fail(path, f"expected an integer >= {minimum} and <= {MAX_REPLICAS}, "
-                            f"got {shown}")  # fmt: skip
-        return value
-
-    def boolean(self, m: _M, path: str, default: bool) -> bool:
-        value = self.take(m, path, default)
-        if value is not None and not isinstance(value, bool):
-            self.fail(path, f"expected true or false, got {_describe(value)}")
-        return default if value is None else value
-
-    def duration(self, m: _M, path: str, *, default: timedelta, allow_zero: bool) -> timedelta:
-        value = self.take(m, path, default)
-        if value is None:
-            return default
-        if isinstance(value, str) and len(value) > MAX_DURATION_LENGTH:
-            self.fail(path, f"is {len(value)} characters long; at most "
-                            f"{MAX_DURATION_LENGTH} allowed")  # fmt: skip
-        try:
-            return parse_duration(value, field=path, allow_zero=allow_zero, days=False,
-                                  maximum=MAX_DURATION)  # fmt: skip
-        except InputError as e:
-            self.fail(path, e.problem.removeprefix(f"{path}: "))
-
-    def timestamp(self, m: _M, path: str) -> pd.Timestamp:
-        value = self.take(m, path)
-        if isinstance(value, str) and len(value) > MAX_TIME_LENGTH:
-            self.fail(path, f"is {len(value)} characters long; at most {MAX_TIME_LENGTH} allowed")
-        if not isinstance(value, str) or not _RFC3339.match(value):
-            example = "'2025-11-28T06:00:00Z'"
-            self.fail(path, f"expected an RFC 3339 time with offset such as {example}, "
-                            f"got {_describe(value)}")  # fmt: skip
-        try:
-            return pd.Timestamp(value.upper()).tz_convert("UTC")
-        except ValueError:
-            self.fail(path, f"{value!r} is not a real date and time")
 
 
 def parse_spec(spec: _M, *, source: str = "policy") -> PolicySpec:

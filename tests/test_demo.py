@@ -10,6 +10,8 @@ from floorcast import scenario
 from floorcast.cli.demo import BASELINE, HPA_MAX, forecast_shop
 from floorcast.cli.demo_live import SPEED, live_policy, replay_fast
 from floorcast.cli.main import app
+from floorcast.core.forecasting import METHODS
+from floorcast.core.forecasting.combine import COMBINATION
 from floorcast.sources.files import read_forecast
 
 
@@ -22,7 +24,7 @@ def test_offline_demo_forecasts_plans_and_writes_the_backtest_reports(tmp_path):
         assert "HPA alone" in html or "reactive" in html.lower()
         fc = read_forecast(tmp_path / f"{svc.name}-forecast.json")
         # From the engine, not a stand-in: one day at 5 minutes after the history.
-        assert fc.meta["method"] in ("seasonal-naive", "fourier", "holt-winters")
+        assert fc.meta["method"] in (*METHODS, COMBINATION)
         assert fc.start == scenario.FORECAST_START and len(fc) == 288
         # Against the scenario's own noise-free load (the generator is the truth here):
         # within 15 % on average (common practice, no source, for a "sane" forecast).

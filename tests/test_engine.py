@@ -185,7 +185,8 @@ def test_auto_picks_per_series_and_records_every_score(registry):
     assert res.method == ("seasonal-naive", "mean", "seasonal-naive")
     for m in res.meta:
         assert set(m["scores"]) == {"seasonal-naive", "mean"}
-        assert m["selection"] == "auto" and m["evaluation"]["origins"] == 3
+        # a day per origin back from the end, each with a season of training before it
+        assert m["selection"] == "auto" and m["evaluation"]["origins"] == min(6, Options().origins)
     s = res.scores[1]
     assert s["mean"]["mase"] < s["seasonal-naive"]["mase"]
     # final forecasts are made once per chosen method, on the rows that chose it
@@ -313,7 +314,7 @@ def test_series_of_different_lengths_are_grouped(registry):
     b = Series(start=T0 + STEP * 7, step=STEP, values=np.abs(daily(6, noise=0.2)[0]))
     res = forecast_batch([a, b], horizon=24, season=DAY, method="seasonal-naive")
     assert res.series(0).start == a.end + STEP and res.series(1).start == b.end + STEP
-    assert res.meta[0]["evaluation"]["origins"] == 3
+    assert res.meta[0]["evaluation"]["origins"] == min(4, Options().origins)  # 5 days of history
 
 
 def test_season_auto_uses_period_detection_or_says_why_not(monkeypatch, registry):

@@ -126,7 +126,7 @@ def test_rolling_origin_uses_only_data_before_each_origin():
     )
     assert np.allclose(bt.mase(), per_origin.mean(axis=1))
     assert np.allclose(bt.residuals, bt.actual - bt.forecast)
-    assert set(bt.scores()) == {"mase", "smape", "mae"}
+    assert set(bt.scores()) == {"mase", "smape", "mae", "wape"}
 
 
 def test_rolling_origin_marks_rows_a_method_could_not_forecast():

@@ -14,8 +14,13 @@ from floorcast.core.forecasting.base import ForecastError, MethodFn
 #: --method name -> "module:function" inside this package.
 METHODS: dict[str, str] = {
     "seasonal-naive": "seasonal_naive:forecast",
+    "seasonal-average": "multiweek:average_forecast",
+    "seasonal-mean": "multiweek:mean_forecast",
+    "seasonal-median": "multiweek:median_forecast",
+    "seasonal-trimmed": "multiweek:trimmed_forecast",
     "fourier": "fourier:forecast",
     "holt-winters": "holt_winters:forecast",
+    "holt-winters-double": "holt_winters:double_forecast",
 }
 
 

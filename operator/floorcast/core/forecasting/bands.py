@@ -18,7 +18,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from floorcast.core.forecasting.evaluation import Backtest, naive_abs_errors, season_lag
+from floorcast.core.forecasting.evaluation import Backtest, naive_abs_errors, pinball, season_lag
 from floorcast.core.forecasting.preprocess import nan_quantiles
 from floorcast.errors import InputError
 
@@ -27,6 +27,10 @@ DEFAULT_QUANTILES = (0.1, 0.9)
 #: block then barely weighs in the fit (common practice, no source).
 MIN_SAMPLES = 10
 QUANTILE_METHOD = "weibull"
+#: Slices of the day the band's width is calibrated in (hours), and the least share of
+#: the series' typical error a slice's width may shrink to (common practice, no source).
+PHASE_BINS = 24
+SCALE_FLOOR = 0.05
 
 
 def check_quantiles(quantiles: tuple[float, float]) -> tuple[float, float]:
@@ -170,6 +174,83 @@ def symmetric(res: np.ndarray, valid: np.ndarray) -> tuple[np.ndarray, np.ndarra
     return np.concatenate([res, -res], axis=1), np.concatenate([valid, valid], axis=1)
 
 
+def phase_period(season: int) -> int:
+    """The day in steps: the season itself, or a seventh of it when it is a week (a day
+    that divides 24 h is never a multiple of 7 steps, 86 400 s = 2⁷·3³·5² s)."""
+    return season // 7 if season >= 14 and season % 7 == 0 else season
+
+
+def phase_bin(positions: np.ndarray, period: int) -> np.ndarray:
+    """Which of ``PHASE_BINS`` equal slices of the day each absolute index falls in."""
+    nb = min(PHASE_BINS, period)
+    return ((np.asarray(positions) % period) * nb) // period
+
+
+def phase_scale(
+    residuals: np.ndarray, valid: np.ndarray, positions: np.ndarray, period: int
+) -> np.ndarray:
+    """(N, bins) typical |residual| per slice of the day, shrunk towards the series'
+    overall mean by ``MIN_SAMPLES`` pseudo-observations and floored at
+    ``SCALE_FLOOR`` of it; 1 where a series has no residual at all."""
+    n = residuals.shape[0]
+    nb = min(PHASE_BINS, period)
+    onehot = np.eye(nb)[phase_bin(positions, period).reshape(-1)]  # (K·H, bins)
+    a = np.where(valid, np.abs(residuals), 0.0).reshape(n, -1)
+    c = valid.reshape(n, -1).astype(np.float64)
+    sums, counts = a @ onehot, c @ onehot
+    total, count = sums.sum(axis=1), counts.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        overall = np.where(count > 0, total / np.maximum(count, 1), 0.0)[:, None]
+        s = (sums + MIN_SAMPLES * overall) / (counts + MIN_SAMPLES)
+    s = np.maximum(s, SCALE_FLOOR * overall)
+    return np.where(overall > 0, s, 1.0)
+
+
+def phase_offsets(
+    residuals: np.ndarray,
+    valid: np.ndarray,
+    positions: np.ndarray,
+    out_positions: np.ndarray,
+    period: int,
+    quantiles: tuple[float, float] = DEFAULT_QUANTILES,
+    *,
+    pool: int | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Band offsets (N, len(out_positions)) calibrated per slice of the day.
+
+    Human load is quiet at night and busy at noon, and so are its forecast errors: one
+    width for the whole day (or a width that may only grow with the horizon) is too
+    wide at night and too narrow at the peak, where a replica floor needs it. So each
+    residual is divided by its slice's typical error (``phase_scale``), the band is
+    sized on those standardised residuals as before (horizon blocks, isotonic
+    widening, absolute residuals), and multiplied back by the typical error of the
+    slice each forecast step falls in. ``positions`` (K, H) are the residuals'
+    absolute indices, ``out_positions`` the forecast's; ``period`` < 2 means no
+    phase (plain horizon bands)."""
+    n = residuals.shape[0]
+    if period >= 2:
+        s = phase_scale(residuals, valid, positions, period)
+        s_res = s[:, phase_bin(positions, period)]
+        s_out = s[:, phase_bin(out_positions, period)]
+    else:
+        s_res, s_out = np.ones(residuals.shape), np.ones((n, len(out_positions)))
+    z, v = symmetric(np.where(valid, residuals / s_res, 0.0), valid)
+    lo, hi, ok = residual_quantiles(z, v, quantiles, pool=pool)
+    h_out = len(out_positions)
+    lo, hi = _extend(lo, h_out), _extend(hi, h_out)
+    return lo * s_out, hi * s_out, ok
+
+
+def _extend(o: np.ndarray, h: int) -> np.ndarray:
+    if o.shape[1] >= h:
+        return o[:, :h]
+    return np.concatenate([o, np.repeat(o[:, -1:], h - o.shape[1], axis=1)], axis=1)
+
+
+def _positions(bt: Backtest) -> np.ndarray:
+    return bt.origins[:, None] + np.arange(bt.forecast.shape[2])[None, :]
+
+
 def from_backtests(
     backtests: dict[str, Backtest],
     methods: Sequence[str],
@@ -177,20 +258,70 @@ def from_backtests(
     quantiles: tuple[float, float] = DEFAULT_QUANTILES,
     *,
     pool: int | None = None,
+    start: int = 0,
+    period: int = 0,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Offsets (N, horizon) for each series from the backtest of the method it uses,
-    one vectorized pass per method; ``ok`` False where that gave too few residuals."""
+    one vectorized pass per method; ``start`` is the forecast's first absolute index
+    (the history's length), ``period`` the day in steps (0: no phase calibration);
+    ``ok`` False where the backtest gave too few residuals."""
     n = len(methods)
     lo, hi = np.zeros((n, horizon)), np.zeros((n, horizon))
     ok = np.zeros(n, dtype=bool)
     names = np.asarray(methods, dtype=object)
+    out = start + np.arange(horizon)
     for name, bt in backtests.items():
         rows = np.flatnonzero(names == name)
         if rows.size and bt.forecast.shape[1]:
-            res, valid = symmetric(bt.residuals[rows], bt.valid[rows])
-            a, b, good = residual_quantiles(res, valid, quantiles, pool=pool)
+            a, b, good = phase_offsets(
+                bt.residuals[rows], bt.valid[rows], _positions(bt), out, period, quantiles,
+                pool=pool,
+            )  # fmt: skip
             lo[rows], hi[rows], ok[rows] = a, b, good
     return lo, hi, ok
+
+
+def holdout(
+    bt: Backtest,
+    quantiles: tuple[float, float] = DEFAULT_QUANTILES,
+    *,
+    pool: int | None = None,
+    period: int = 0,
+) -> dict[str, np.ndarray]:
+    """Out-of-sample band scores per series: each origin's actuals against bands sized
+    from the *other* origins' residuals (leave one origin out), as the engine sizes
+    them. ``coverage`` of [lower, upper], ``upper_coverage`` (share at or under the
+    upper bound) and ``wql``, the weighted quantile loss of both bounds
+    (``evaluation.weighted_quantile_loss``). The engine's own bands use all origins,
+    so these slightly understate their quality; NaN with fewer than two origins."""
+    n, k, _ = bt.forecast.shape
+    nan = np.full(n, np.nan)
+    if k < 2:
+        return {"coverage": nan, "upper_coverage": nan.copy(), "wql": nan.copy()}
+    inside, under, count = np.zeros(n), np.zeros(n), np.zeros(n)
+    loss, weight = np.zeros(n), np.zeros(n)
+    res, pos = bt.residuals, _positions(bt)
+    for j in range(k):
+        others = [i for i in range(k) if i != j]
+        lo, hi, ok = phase_offsets(
+            res[:, others], bt.valid[:, others], pos[others], pos[j], period, quantiles,
+            pool=pool,
+        )  # fmt: skip
+        _, lower, upper = apply_offsets(bt.forecast[:, j], lo, hi)
+        v = bt.valid[:, j] & ok[:, None]
+        y = bt.actual[:, j]
+        inside += ((y >= lower) & (y <= upper) & v).sum(axis=1)
+        under += ((y <= upper) & v).sum(axis=1)
+        count += v.sum(axis=1)
+        for b, q in zip((lower, upper), quantiles, strict=True):
+            loss += np.where(v, 2 * pinball(y, b, q), 0.0).sum(axis=1) / len(quantiles)
+        weight += np.where(v, np.abs(y), 0.0).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return {
+            "coverage": np.where(count > 0, inside / np.maximum(count, 1), np.nan),
+            "upper_coverage": np.where(count > 0, under / np.maximum(count, 1), np.nan),
+            "wql": np.where(weight > 0, 100 * loss / np.where(weight > 0, weight, 1), np.nan),
+        }
 
 
 def holdout_coverage(
@@ -198,24 +329,7 @@ def holdout_coverage(
     quantiles: tuple[float, float] = DEFAULT_QUANTILES,
     *,
     pool: int | None = None,
+    period: int = 0,
 ) -> np.ndarray:
-    """Out-of-sample band coverage per series: each origin's actuals against bands
-    sized from the *other* origins' residuals (leave one origin out). The engine's
-    own bands use all origins, so this slightly understates their coverage; NaN with
-    fewer than two origins or nothing to score."""
-    n, k, _ = bt.forecast.shape
-    if k < 2:
-        return np.full(n, np.nan)
-    hits, count = np.zeros(n), np.zeros(n)
-    res = bt.residuals
-    for j in range(k):
-        others = [i for i in range(k) if i != j]
-        r, v_ = symmetric(res[:, others], bt.valid[:, others])
-        lo, hi, ok = residual_quantiles(r, v_, quantiles, pool=pool)
-        _, lower, upper = apply_offsets(bt.forecast[:, j], lo, hi)
-        v = bt.valid[:, j] & ok[:, None]
-        actual = bt.actual[:, j]
-        hits += ((actual >= lower) & (actual <= upper) & v).sum(axis=1)
-        count += v.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(count > 0, hits / np.maximum(count, 1), np.nan)
+    """Held-out coverage of [lower, upper] only (see ``holdout``)."""
+    return holdout(bt, quantiles, pool=pool, period=period)["coverage"]

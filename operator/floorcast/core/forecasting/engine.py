@@ -11,6 +11,7 @@ clipped at 0 here. There is no clock: ``generated`` is a parameter.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -20,9 +21,9 @@ import numpy as np
 import pandas as pd
 
 from floorcast.core import forecasting
-from floorcast.core.forecasting import bands, evaluation, preprocess
+from floorcast.core.forecasting import bands, combine, evaluation, preprocess
 from floorcast.core.forecasting.base import ForecastError
-from floorcast.core.forecasting.select import call_rows, select, unevaluated
+from floorcast.core.forecasting.select import Selection, call_rows, select, unevaluated
 from floorcast.core.series import Series
 from floorcast.durations import format_duration, parse_duration
 from floorcast.errors import InputError
@@ -37,8 +38,10 @@ class Options:
     """Tuning knobs with defaults that suit 5-minute load over two weeks."""
 
     #: Rolling origins: the newest leaves one evaluation horizon to score, the others
-    #: step back a day each, so the scores cover three different days.
-    origins: int = 3
+    #: step back a day each, so the scores cover a week of different days (each
+    #: weekday once: with three, a method that got the last three weekdays right won
+    #: even where it fails every weekend, and band quantiles rested on three days).
+    origins: int = 7
     origin_spacing: pd.Timedelta = _DAY
     #: Score at most a day ahead: longer horizons would leave too little training data
     #: before the origins; bands beyond it keep the last evaluated width.
@@ -204,7 +207,8 @@ def forecast_batch(
     h = steps(horizon, dt, "horizon")
     if h < 1:
         raise InputError(f"horizon must be at least one step, got {h}")
-    names = (method,) if method != "auto" else tuple(candidates or forecasting.METHODS)
+    pooled = method in ("auto", combine.COMBINATION)
+    names = (method,) if not pooled else tuple(candidates or forecasting.METHODS)
     for name in names:
         forecasting.method(name)  # an unknown name fails before any work
     seasons = _season(season, rows, dt)
@@ -229,6 +233,7 @@ def forecast_batch(
             masked_,
             names,
             auto=method == "auto",
+            combined=method == combine.COMBINATION,
             season=s,
             horizon=h,
             step=dt,
@@ -266,6 +271,7 @@ def _forecast_group(
     names: tuple[str, ...],
     *,
     auto: bool,
+    combined: bool = False,
     season: int,
     horizon: int,
     step: pd.Timedelta,
@@ -301,24 +307,14 @@ def _forecast_group(
             valid=valid,
             quantiles=quantiles,
             pool=opt.pool,
+            combination=auto or combined,
         )
+        if combined:
+            sel = _combination_first(sel)
     else:
         sel = unevaluated(names, n, prefer=FALLBACK_METHOD)
-    # Forecast with each row's best method; a row its choice rejects on the full
-    # history tries the next best, so one odd series cannot sink the whole batch.
-    final = np.full(n, -1)
-    point = np.zeros((n, horizon))
-    why = dict(sel.failures)
-    for rank in range(len(names)):
-        left = final < 0
-        for j in np.unique(sel.order[left, rank]):
-            rows = np.flatnonzero(left & (sel.order[:, rank] == j))
-            got, ok, reason = call_rows(
-                forecasting.method(names[j]), prep.values[rows], season=season, horizon=horizon
-            )
-            point[rows[ok]], final[rows[ok]] = got[ok], j
-            if reason:
-                why.setdefault(names[j], reason)
+    names = sel.names
+    point, final, why = _final_forecasts(sel, prep.values, season=season, horizon=horizon)
     if (final < 0).any():
         detail = "; ".join(f"{k}: {v}" for k, v in why.items())
         raise ForecastError(
@@ -326,7 +322,10 @@ def _forecast_group(
             f"forecast by {', '.join(names)} ({detail})"
         )
     methods = [names[j] for j in final]
-    lo, hi, banded = bands.from_backtests(sel.backtests, methods, h_eval, quantiles, pool=opt.pool)
+    lo, hi, banded = bands.from_backtests(
+        sel.backtests, methods, horizon, quantiles, pool=opt.pool, start=t_len,
+        period=bands.phase_period(season),
+    )  # fmt: skip
     if not banded.all():
         rest = np.flatnonzero(~banded)
         a, b = bands.insample_quantiles(prep.values[rest], season, valid[rest], quantiles)
@@ -335,10 +334,12 @@ def _forecast_group(
     meta = []
     for i in range(n):
         picked = sel.evaluated[i] and final[i] == sel.order[i, 0]
+        fixed = not auto and (not combined or methods[i] == combine.COMBINATION)
         meta.append(
             {
                 "method": methods[i],
-                "selection": "fixed" if not auto else "auto" if picked else "fallback",
+                **_members(sel, i, methods[i]),
+                "selection": "fixed" if fixed else "auto" if picked else "fallback",
                 "season": int(season),
                 "season_duration": format_duration(step * season) if season else None,
                 "horizon": int(horizon),
@@ -359,6 +360,71 @@ def _forecast_group(
             }
         )
     return result, meta
+
+
+def _combination_first(sel: Selection) -> Selection:
+    """``--method combination``: the combination first for every series, then the
+    others in their ranked order (the fallbacks when it cannot be made)."""
+    if combine.COMBINATION not in sel.names:
+        return sel
+    c = sel.names.index(combine.COMBINATION)
+    rest = sel.order[sel.order != c].reshape(len(sel.order), -1)
+    order = np.concatenate([np.full((len(rest), 1), c), rest], axis=1)
+    evaluated = sel.evaluated & sel.backtests[combine.COMBINATION].ok
+    return dataclasses.replace(sel, order=order, evaluated=evaluated)
+
+
+def _members(sel: Selection, i: int, method: str) -> dict[str, Any]:
+    """The combination's members, for the metadata (nothing for other methods)."""
+    if method != combine.COMBINATION:
+        return {}
+    return {"combination": [sel.names[j] for j in np.flatnonzero(sel.parts[i] > 0)]}
+
+
+def _final_forecasts(
+    sel: Selection, y: np.ndarray, *, season: int, horizon: int
+) -> tuple[np.ndarray, np.ndarray, dict[str, str]]:
+    """Forecast with each row's best candidate; a row its choice rejects on the full
+    history tries the next best, so one odd series cannot sink the whole batch. Each
+    method runs once per group of rows that need it (a combination needs several);
+    returns (point (N, H), chosen index or -1, first failure per method)."""
+    n = len(y)
+    names = sel.names
+    cache = np.full((len(names), n, horizon), np.nan)
+    tried = np.zeros((len(names), n), dtype=bool)
+    why = dict(sel.failures)
+
+    def run(j: int, rows: np.ndarray) -> np.ndarray:
+        todo = rows[~tried[j, rows]]
+        if todo.size:
+            got, _, reason = call_rows(
+                forecasting.method(names[j]), y[todo], season=season, horizon=horizon
+            )
+            cache[j, todo], tried[j, todo] = got, True
+            if reason:
+                why.setdefault(names[j], reason)
+        return cache[j, rows]
+
+    final = np.full(n, -1)
+    point = np.zeros((n, horizon))
+    combo = names.index(combine.COMBINATION) if combine.COMBINATION in names else -1
+    for rank in range(len(names)):
+        left = final < 0
+        for j in np.unique(sel.order[left, rank]):
+            rows = np.flatnonzero(left & (sel.order[:, rank] == j))
+            if j == combo:
+                w = sel.parts[rows]
+                got = np.zeros((len(rows), horizon))
+                for m in np.flatnonzero((w > 0).any(axis=0)):
+                    use = w[:, m] > 0
+                    part = np.zeros((len(rows), horizon))
+                    part[use] = run(m, rows[use])
+                    got += w[:, m, None] * part
+            else:
+                got = run(j, rows)
+            ok = np.all(np.isfinite(got), axis=1)
+            point[rows[ok]], final[rows[ok]] = got[ok], j
+    return point, final, why
 
 
 def forecast_series(

@@ -10,6 +10,14 @@ and below 1 means "better than repeating last season".
 sMAPE is the 0–200 % variant (Makridakis 1993; as written in Hyndman & Koehler 2006):
 ``100 · mean(2·|y − f| / (|y| + |f|))``, with a 0/0 term (both zero) counted as 0.
 
+WAPE (weighted absolute percentage error) is ``100 · Σ|y − f| / Σ|y|``: the error
+as a share of the load actually served, so a series' busy hours weigh as much as they
+cost, and a night of near-zero load does not explode it as MAPE would. The weighted
+quantile loss is the same idea for a band edge: ``100 · 2 Σ ρ_q(y − b_q) / Σ|y|``
+with the pinball loss ρ_q(u) = max(q·u, (q − 1)·u) (Koenker & Bassett 1978; the
+"weighted quantile loss" of the M5 and GluonTS evaluations, normalised so that at
+q = 0.5 it equals WAPE — cited from memory).
+
 Every measure reduces over all axes but the first, so it works on one forecast per
 series (N, H) or on many origins (N, K, H), and takes a ``valid`` mask of points to
 score (masked events and gap-filled points are not observations). A series with no
@@ -61,6 +69,43 @@ def smape(actual: np.ndarray, forecast: np.ndarray, valid: np.ndarray | None = N
     with np.errstate(invalid="ignore", divide="ignore"):
         terms = np.where(den > 0, 2 * np.abs(y - f) / np.where(den > 0, den, 1), 0.0)
     return 100 * _mean(terms, valid)
+
+
+def wape(actual: np.ndarray, forecast: np.ndarray, valid: np.ndarray | None = None) -> np.ndarray:
+    """WAPE in percent; NaN where the scored load sums to zero (nothing to weigh by)."""
+    y = np.asarray(actual, dtype=np.float64)
+    return _share(np.abs(y - np.asarray(forecast, dtype=np.float64)), np.abs(y), valid)
+
+
+def pinball(actual: np.ndarray, bound: np.ndarray, q: float) -> np.ndarray:
+    """Pinball (quantile) loss terms ρ_q(y − b), elementwise."""
+    u = np.asarray(actual, dtype=np.float64) - np.asarray(bound, dtype=np.float64)
+    return np.maximum(q * u, (q - 1) * u)
+
+
+def weighted_quantile_loss(
+    actual: np.ndarray,
+    bounds: tuple[np.ndarray, ...],
+    quantiles: tuple[float, ...],
+    valid: np.ndarray | None = None,
+) -> np.ndarray:
+    """Mean over the quantiles of ``100 · 2 Σ ρ_q / Σ|y|`` per series."""
+    y = np.asarray(actual, dtype=np.float64)
+    parts = [
+        _share(2 * pinball(y, b, q), np.abs(y), valid)
+        for b, q in zip(bounds, quantiles, strict=True)
+    ]
+    return np.mean(np.stack(parts), axis=0)
+
+
+def _share(num: np.ndarray, den: np.ndarray, valid: np.ndarray | None) -> np.ndarray:
+    n, d = _flat(num), _flat(den)
+    if valid is not None:
+        v = _flat(np.broadcast_to(valid, num.shape)) > 0
+        n, d = np.where(v, n, 0.0), np.where(v, d, 0.0)
+    top, bottom = n.sum(axis=1), d.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(bottom > 0, 100 * top / np.where(bottom > 0, bottom, 1.0), np.nan)
 
 
 def coverage(
@@ -166,8 +211,11 @@ class Backtest:
     def smape(self) -> np.ndarray:
         return smape(self.actual, self.forecast, self.valid)
 
+    def wape(self) -> np.ndarray:
+        return np.where(self.ok, wape(self.actual, self.forecast, self.valid), np.nan)
+
     def scores(self) -> dict[str, np.ndarray]:
-        return {"mase": self.mase(), "smape": self.smape(), "mae": self.mae()}
+        return {"mase": self.mase(), "smape": self.smape(), "mae": self.mae(), "wape": self.wape()}
 
 
 def rolling_origin(

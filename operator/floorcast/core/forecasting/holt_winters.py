@@ -362,3 +362,22 @@ def double_seasonal_forecast(
         seasonal=seasonal,
         init=init,
     )
+
+
+def day_and_week(season: int) -> tuple[int, int]:
+    """(day, week) in steps from the engine's season, which is the week when the
+    history showed a weekly rhythm and the day otherwise. A day is a whole number of
+    steps for every step that divides 24 h, and such a count is never a multiple of 7
+    (86 400 s = 2⁷·3³·5² s), so a season divisible by 7 is a week."""
+    if season >= 14 and season % 7 == 0:
+        return season // 7, season
+    return season, 7 * season
+
+
+def double_forecast(y: np.ndarray, *, season: int, horizon: int) -> np.ndarray:
+    """Registry ``holt-winters-double``: Taylor's (2003) day-inside-week model, additive,
+    damped trend; it needs two weeks of history."""
+    if not season:
+        raise ForecastError("double-seasonal Holt-Winters needs a season (the day or the week)")
+    day, week = day_and_week(int(season))
+    return forecast(y, season=day, horizon=horizon, season2=week)

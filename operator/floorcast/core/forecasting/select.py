@@ -5,12 +5,17 @@ batch workers, and one method for all would serve neither. It stays vectorized
 because every candidate is evaluated on the whole batch, and the final forecast is
 made once per group of series that chose the same method.
 
-The ranking key is MASE. Within one series every method is divided by the same
-scale at each origin, so MASE ranks them like an origin-weighted MAE; where MASE is
-not finite for every candidate (a history that repeats exactly has scale 0) the
-plain MAE decides instead. Equal scores go to the earlier candidate, so list the
-simpler methods first. Methods are looked up only through the registry,
-``floorcast.core.forecasting.method``.
+The ranking key is the mean of two held-out errors, both as a share of the load
+served: WAPE of the point forecast and the weighted quantile loss of the band's two
+edges (``evaluation``), the latter from bands sized leave-one-origin-out exactly as
+the engine sizes them. A floor is planned on the upper band, so a method with a good
+point but badly placed bands should lose; MASE (kept in the scores) ranked the point
+alone, and on real traces it let Holt-Winters win where one-week seasonal naive was
+better (issue 13). Where the key is not finite for every candidate (a series with no
+load to weigh by, fewer than two origins) WAPE, then MAE decides instead. Equal
+scores go to the earlier candidate, so list the simpler methods first. Methods are
+looked up only through the registry, ``floorcast.core.forecasting.method``; the
+``combination`` candidate (``combine``) is built here from the others' backtests.
 """
 
 from __future__ import annotations
@@ -21,7 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from floorcast.core import forecasting
-from floorcast.core.forecasting import bands
+from floorcast.core.forecasting import bands, combine
 from floorcast.core.forecasting.base import ForecastError, MethodFn
 from floorcast.core.forecasting.evaluation import Backtest, rolling_origin
 
@@ -77,6 +82,9 @@ class Selection:
     backtests: dict[str, Backtest]
     scores: dict[str, dict[str, np.ndarray]]  # name -> metric -> (N,)
     failures: dict[str, str] = field(default_factory=dict)  # name -> first reason
+    #: (N, M) weights of the candidates in each series' combination (rows sum to 1,
+    #: or to 0 where there is none); empty when ``combination`` is not a candidate
+    parts: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
 
     @property
     def chosen(self) -> np.ndarray:
@@ -92,7 +100,7 @@ class Selection:
         return {
             n: self.failures.get(n, "no forecast")
             for n in self.names
-            if n in self.backtests and not self.backtests[n].ok[i]
+            if n in self.backtests and not self.backtests[n].ok[i] and n != combine.COMBINATION
         }
 
     def row_scores(self, i: int) -> dict[str, dict[str, float | None]]:
@@ -134,12 +142,26 @@ def evaluate(
     return backtests, failures
 
 
-def rank_key(scores: dict[str, dict[str, np.ndarray]], names: Sequence[str]) -> np.ndarray:
-    """(N, M) key to minimise: MASE, or MAE on rows where some MASE is not finite."""
-    mase = np.stack([scores[n]["mase"] for n in names], axis=1)
-    mae_ = np.stack([scores[n]["mae"] for n in names], axis=1)
-    use_mae = ~np.all(np.isfinite(mase), axis=1, keepdims=True)
-    key = np.where(use_mae, mae_, mase)
+def rank_key(
+    scores: dict[str, dict[str, np.ndarray]],
+    names: Sequence[str],
+    ok: np.ndarray | None = None,
+) -> np.ndarray:
+    """(N, M) key to minimise: (WAPE + weighted quantile loss) / 2; on rows where that
+    is not finite for every candidate that forecast the series (``ok``), WAPE; where
+    neither is, MAE."""
+
+    def stack(metric: str) -> np.ndarray:
+        return np.stack(
+            [scores[n].get(metric, np.full(len(scores[n]["mae"]), np.nan)) for n in names], axis=1
+        )
+
+    mixed = (stack("wape") + stack("wql")) / 2
+    key = stack("mae")
+    counted = np.ones(key.shape, dtype=bool) if ok is None else ok
+    for better in (stack("wape"), mixed):
+        use = np.all(np.isfinite(better) | ~counted, axis=1, keepdims=True)
+        key = np.where(use, better, key)
     return np.where(np.isnan(key), np.inf, key)
 
 
@@ -167,26 +189,39 @@ def select(
     valid: np.ndarray | None = None,
     quantiles: tuple[float, float] = bands.DEFAULT_QUANTILES,
     pool: int | None = None,
+    combination: bool = False,
 ) -> Selection:
-    """Evaluate ``names`` at origins ``at``; rank them per series, lowest MASE first.
+    """Evaluate ``names`` at origins ``at``; rank them per series, lowest key first.
 
     A candidate that failed on a series at any origin ranks last for it (after the
     scored ones, in candidate order), so it is only tried if all others fail too.
-    Scores are MASE, sMAPE, MAE and held-out band ``coverage`` (not used to rank).
+    Scores are MASE, sMAPE, MAE, WAPE and the held-out band scores (``coverage``,
+    ``wql``). ``combination`` adds the mean of each series' best
+    few methods as one more candidate, last (needs three methods and two origins).
     """
     if not names:
         raise ForecastError("no candidate methods to choose from")
     names = tuple(names)
     backtests, failures = evaluate(y, names, season=season, horizon=horizon, at=at, valid=valid)
-    scores = {
-        n: {
-            **backtests[n].scores(),
-            "coverage": bands.holdout_coverage(backtests[n], quantiles, pool=pool),
-        }
-        for n in names
-    }
+    period = bands.phase_period(season)
+
+    def scored(bt: Backtest) -> dict[str, np.ndarray]:
+        held = bands.holdout(bt, quantiles, pool=pool, period=period)
+        return {**bt.scores(), "coverage": held["coverage"], "wql": held["wql"]}
+
+    scores = {n: scored(backtests[n]) for n in names}
     ok = np.stack([backtests[n].ok for n in names], axis=1)
-    key = np.where(ok, rank_key(scores, names), np.inf)
+    key = np.where(ok, rank_key(scores, names, ok), np.inf)
+    parts = np.zeros((0, 0))
+    if combination and len(names) >= combine.PARTS and len(at) >= 2:
+        parts = combine.weights(key)
+        bt = combine.backtest(backtests, names)
+        backtests[combine.COMBINATION] = bt
+        scores[combine.COMBINATION] = scored(bt)
+        names = (*names, combine.COMBINATION)
+        ok = np.concatenate([ok, bt.ok[:, None] & (parts > 0).any(axis=1, keepdims=True)], axis=1)
+        key = np.where(ok, rank_key(scores, names, ok), np.inf)
+        parts = np.concatenate([parts, np.zeros((len(parts), 1))], axis=1)
     # Stable sort: equal keys keep candidate order. An inf key (failed, or no valid
     # point to score) keeps the rows ranked but marks them not evaluated.
     order = np.argsort(key, axis=1, kind="stable")
@@ -198,4 +233,5 @@ def select(
         backtests=backtests,
         scores=scores,
         failures=failures,
+        parts=parts,
     )

@@ -1,8 +1,8 @@
 """The perfect-foresight oracle: on a steep ramp it leaves no saturation.
 
 A floor planned at whole forecast steps meets a rise inside one step only from the
-step after it; planned on the forecast read at the HPA's sync (``planning.refine``)
-it is up a full lead time before every instant's need.
+step after it; planned on the forecast read each minute (``planning.refine``, the
+operator's grid) it is up a full lead time before every instant's need.
 """
 
 from __future__ import annotations
@@ -58,10 +58,12 @@ def test_oracle_leaves_no_saturation_on_a_steep_ramp(step):
     # At about the HPA alone's cost: the floor is up only around the ramps.
     rh = {n: r.scores[r.row(n)]["replica_hours"] for n in ("reactive", "oracle")}
     assert rh["oracle"] <= 1.15 * rh["reactive"]
-    # Planned at whole forecast steps (the old behaviour) the same oracle saturates:
-    # the floor for the rise arrives after the rise began.
+    # Planned at whole forecast steps the oracle is safe too now that each point
+    # stands for the interval up to the next one (planning.cover_intervals), but it
+    # pays for it: the floor rises a whole step early instead of a minute.
     coarse = replay.run(_spec(), h, _setup(plan_step=pd.Timedelta(step)))
-    assert coarse.scores[coarse.row("oracle")]["under_capacity_minutes"] > 0
+    assert coarse.scores[coarse.row("oracle")]["under_capacity_minutes"] == 0.0
+    assert coarse.scores[coarse.row("oracle")]["replica_hours"] >= rh["oracle"]
 
 
 def test_refine_is_numpys_interp_on_the_same_points():

@@ -57,7 +57,7 @@ def test_json_carries_the_ladder_the_equal_saturation_saving_and_the_oracle(hist
     # holdTime 0 never costs more than 15 m of hold at the same target.
     by = {(r["holdTime"], r["target_utilization"]): r["replica_hours"] for r in rows}
     assert by[("0s", 0.7)] <= by[("15m", 0.7)]
-    assert doc["plan_step_seconds"] == 15.0
+    assert doc["plan_step_seconds"] == 60.0  # the operator's grid (docs/policy.md)
 
 
 def test_text_and_report_show_the_comparison(history, tmp_path, capsys):

@@ -67,18 +67,28 @@ def test_plan_json_is_one_document_with_the_contract_keys(files, capsys):
     assert code == 0, err
     doc = json.loads(out)  # the whole stdout parses: nothing else is printed there
     assert doc["floor_now"] == 2
-    # lead 10m = 2 steps: the rise to 5 starts at 00:50; hold 10m keeps it to 01:25.
-    assert doc["next_change"] == {
-        "at": "2026-12-01T00:50:00Z",
-        "from": 2,
-        "to": 5,
-        "cause_at": "2026-12-01T01:00:00Z",
-        "cause_load": 5.0,
-    }
+    # Planned on the forecast read each minute (docs/policy.md, "Planning resolution"):
+    # straight lines between the samples, so the load climbs 1 → 5 from 00:55 to
+    # 01:00 and falls back from 01:10 to 01:15; each minute stands for the interval
+    # up to the next, so the minute from 00:56 needs ceil(2.6) = 3 (its end, 00:57),
+    # 4 from 00:57, 5 from 00:58 to the minute from 01:10. Lead 10m puts each rise
+    # ten minutes earlier; hold 10m keeps 5 until 01:21 and lets 4, 3, 2 follow.
+    assert doc["next_change"]["at"] == "2026-12-01T00:46:00Z"
+    assert (doc["next_change"]["from"], doc["next_change"]["to"]) == (2, 3)
+    assert doc["next_change"]["cause_at"] == "2026-12-01T00:56:00Z"
+    ref = np.interp(57, [55, 60], [1.0, 5.0])  # the interval's end, by numpy's interp
+    assert doc["next_change"]["cause_load"] == pytest.approx(ref)
     assert [(c["at"], c["from"], c["to"]) for c in doc["changes"]] == [
-        ("2026-12-01T00:50:00Z", 2, 5),
-        ("2026-12-01T01:25:00Z", 5, 2),
+        ("2026-12-01T00:46:00Z", 2, 3),
+        ("2026-12-01T00:47:00Z", 3, 4),
+        ("2026-12-01T00:48:00Z", 4, 5),
+        ("2026-12-01T01:22:00Z", 5, 4),
+        ("2026-12-01T01:23:00Z", 4, 3),
+        ("2026-12-01T01:24:00Z", 3, 2),
     ]
+    assert doc["plan_step_seconds"] == 60.0
+    # Every change sits on a whole minute: a real instant of the planning grid.
+    assert all(c["at"].endswith(":00Z") for c in doc["changes"])
 
 
 def test_plan_flags_clamp_to_hpa_max(files, capsys):
@@ -121,7 +131,9 @@ def test_plan_table_and_plot(files, tmp_path, capsys):
         capsys,
     )
     assert code == 0
-    assert "floor now 1" in out and "00:50:00Z" in out and "1 → 5" in out
+    # Baseline 1: the minute from 00:55 reaches 1.8 (the straight line 00:55→01:00),
+    # needs 2 and enters the 10-minute lead window at 00:45, the first change.
+    assert "floor now 1" in out and "00:45:00Z" in out and "1 → 2" in out and "4 → 5" in out
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and png.stat().st_size > 10_000
 
 
@@ -273,7 +285,8 @@ def test_console_script_runs_in_a_subprocess(files):
         timeout=120,
     )
     assert p.returncode == 0, p.stderr
-    assert json.loads(p.stdout)["next_change"]["to"] == 5
+    nxt = json.loads(p.stdout)["next_change"]
+    assert (nxt["at"], nxt["from"], nxt["to"]) == ("2026-12-01T00:45:00Z", 1, 2)
 
 
 def test_demo_offline_plans_every_service_ahead_of_its_peaks(tmp_path):
@@ -284,7 +297,7 @@ def test_demo_offline_plans_every_service_ahead_of_its_peaks(tmp_path):
         assert (tmp_path / f"{name}-forecast.json").exists()
         floor = p.schedule.floor[0]
         req = p.schedule.required[0]
-        lead = int(pd.Timedelta(p.spec.lead_time) / p.forecast.step)
+        lead = int(pd.Timedelta(p.spec.lead_time) / p.schedule.step)
         covered = int(p.schedule.covered[0])
         # The floor is in place a lead time before each need (up to the ceiling).
         for i in range(covered):
@@ -293,6 +306,6 @@ def test_demo_offline_plans_every_service_ahead_of_its_peaks(tmp_path):
         assert floor[:covered].min() < floor[:covered].max()
     sf = plans["storefront"]
     # The storefront's evening peak (~20:00) is covered: floor raised before 19:50.
-    t = sf.forecast.times
+    t = sf.schedule.times
     at_1950 = int(np.flatnonzero(t == pd.Timestamp("2026-11-30T19:50:00Z"))[0])
     assert sf.schedule.floor[0, at_1950] >= 12

@@ -44,7 +44,7 @@ def test_offline_plans_raise_the_floor_only_around_the_peaks(tmp_path):
     plans = run_offline(tmp_path, Console(file=StringIO()), plots=False)
     sf = plans["storefront"]
     floor = sf.schedule.floor[0]
-    t = sf.forecast.times
+    t = sf.schedule.times  # the planning grid (one minute), not the forecast's
     # Evening peak ~20:12 (scenario.profile): floor well above baseline at 20:00,
     # back at the baseline at 04:00 (the night's load needs one replica or less).
     assert floor[int(np.flatnonzero(t == pd.Timestamp("2026-11-30T20:00:00Z"))[0])] >= 10

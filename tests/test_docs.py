@@ -11,6 +11,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pytest
 import yaml
 
@@ -148,8 +149,19 @@ def test_worked_example_matches_floorcast_plan(tmp_path: Path) -> None:
         capture_output=True, text=True, check=True,
     )  # fmt: skip
     changes = [(c["at"], c["from"], c["to"]) for c in json.loads(res.stdout)["changes"]]
-    # By hand (docs/policy.md): ceil(3.0 × 1.1 / 0.5) = 7 from 13:00 − 10m; the 13:05
-    # step ends 13:10, + 30m hold = 13:40; off-peak ceil(0.8 × 1.1 / 0.5) = 2.
-    assert changes == [("2027-01-08T12:50:00Z", 2, 7), ("2027-01-08T13:40:00Z", 7, 2)]
+    # By hand (docs/policy.md, worked example): the load on the straight line between
+    # the 5-minute samples (numpy.interp at each minute), need = ceil(load × 1.1 / 0.5),
+    # each need raised 10 minutes ahead and held 30 minutes after.
+    minutes = np.arange(12 * 60 + 40, 14 * 60 + 30)
+    load = np.interp(minutes, [12 * 60 + 55, 13 * 60, 13 * 60 + 5, 13 * 60 + 10],
+                     [0.8, 3.0, 3.0, 0.8])  # fmt: skip
+    # Each minute stands for the interval up to the next: the larger of its two ends.
+    top = np.maximum(load, np.append(load[1:], load[-1]))
+    need = np.ceil(top * 1.1 / 0.5 - 1e-9).astype(int)
+    floor = [max(2, need[max(0, i - 30): i + 11].max()) for i in range(len(minutes) - 10)]
+    want = [(f"2027-01-08T{minutes[i] // 60:02d}:{minutes[i] % 60:02d}:00Z", floor[i - 1],
+             floor[i]) for i in range(1, len(floor)) if floor[i] != floor[i - 1]]  # fmt: skip
+    assert changes == want
+    assert changes[4] == ("2027-01-08T12:49:00Z", 6, 7) and changes[-1][0].endswith("13:40:00Z")
     text = (DOCS / "policy.md").read_text()
-    assert "**12:50** to 7" in text and "**13:40**" in text
+    assert "**12:49** to 7" in text and "**13:40**" in text

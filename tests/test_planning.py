@@ -215,3 +215,37 @@ def test_sliding_max_against_a_plain_loop():
         b, c = int(rng.integers(0, 7)), int(rng.integers(0, 7))
         exp = [[a[w, max(0, i - b) : i + c + 1].max() for i in range(a.shape[1])] for w in range(3)]
         assert planning.sliding_max(a, b, c).tolist() == exp
+
+
+def test_cover_intervals_is_the_max_of_the_straight_line_over_each_interval():
+    # Reference: numpy.interp on a 100× denser grid, its maximum over each interval.
+    rng = np.random.default_rng(7)
+    pts = rng.uniform(0, 10, size=(3, 6))
+    fine = planning.refine(pts, pd.Timedelta("5min"), pd.Timedelta("1min"))[:, :26]
+    got = planning.cover_intervals(fine)
+    x = np.arange(6) * 5.0
+    for w in range(3):
+        dense_t = np.linspace(0, 25, 2501)
+        dense = np.interp(dense_t, x, pts[w])
+        for i in range(25):
+            inside = (dense_t >= i) & (dense_t <= i + 1)
+            assert got[w, i] == pytest.approx(dense[inside].max())
+        assert got[w, 25] == pytest.approx(pts[w, 5])
+
+
+@pytest.mark.parametrize(
+    ("step", "n", "want"),
+    [
+        ("5min", 288, "1min"),  # the usual day-ahead forecast: read each minute
+        ("30s", 100, "30s"),  # finer than a minute already: as it is
+        ("90s", 100, "90s"),  # not a whole number of minutes: as it is
+        ("1h", 100_000, "30min"),  # 6M one-minute points: the finest divisor that fits
+        ("1h", 3_000, "1min"),  # 180 000 points fit
+    ],
+)
+def test_plan_resolution_is_a_divisor_of_the_step_within_the_point_bound(step, n, want):
+    got = planning.plan_resolution(pd.Timedelta(step), n)
+    assert got == pd.Timedelta(want)
+    k = pd.Timedelta(step) / got
+    assert k == int(k)  # every planned instant is a real instant of both grids
+    assert planning.refined_points(n, pd.Timedelta(step), got) <= planning.MAX_PLAN_POINTS

@@ -55,6 +55,17 @@ def planning_load(spec: PolicySpec, forecast: Series) -> np.ndarray:
     return np.asarray(forecast.values, dtype=np.float64)
 
 
+def refined_load(spec: PolicySpec, forecast: Series, fine: pd.Timedelta) -> np.ndarray:
+    """The planning load read on ``fine`` (``planning.refine``), from the forecast's
+    first point to its last: the same reading the back-test plans on
+    (docs/backtest.md, "Planning resolution"), so a rise between two forecast points
+    is covered a lead before it happens, not from the next whole step. Each point
+    stands for the interval it starts (``planning.cover_intervals``)."""
+    n = planning.refined_points(len(forecast), forecast.step, fine)
+    line = planning.refine(planning_load(spec, forecast)[None, :], forecast.step, fine)[:, :n]
+    return planning.cover_intervals(line)[0]
+
+
 def policy_event_factors(spec: PolicySpec, times: pd.DatetimeIndex) -> np.ndarray:
     events = [(e.start, e.end, e.factor) for e in spec.planned_events]
     return planning.event_factors(times, [events])[0]
@@ -110,6 +121,7 @@ class FloorPlan:
             "lower": self.bounds.lower,
             "ceiling": self.bounds.ceiling,
             "per_replica": self.per_replica,
+            "plan_step_seconds": self.schedule.step.total_seconds(),
             "forecast": {
                 "start": iso(self.forecast.start),
                 "end": iso(self.forecast.end),
@@ -139,12 +151,14 @@ def plan_policy(
             "pass --per-replica to preview without a cluster"
         )
     bounds = bounds_for(spec, baseline=baseline, hpa_max=hpa_max)
-    times = forecast.times
+    fine = planning.plan_resolution(forecast.step, len(forecast))
+    load = refined_load(spec, forecast, fine)
+    times = pd.date_range(forecast.start, periods=load.shape[0], freq=fine)
     try:
         schedule = planning.plan(
             forecast.start,
-            forecast.step,
-            planning_load(spec, forecast)[None, :],
+            fine,
+            load[None, :],
             per_replica=cap,
             headroom=spec.headroom,
             lead=pd.Timedelta(spec.lead_time),
@@ -156,7 +170,6 @@ def plan_policy(
         i = schedule.check_covers(at, [pd.Timedelta(spec.lead_time)])
     except planning.PlanningError as e:
         raise InputError(str(e), source=forecast.source) from None
-    load = planning_load(spec, forecast)
     ch = schedule.changes.for_workload(0)
     changes = []
     for idx, old, new, cause in zip(ch.index, ch.old, ch.new, ch.cause_index, strict=True):

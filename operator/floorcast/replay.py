@@ -61,7 +61,7 @@ class Setup:
     forecast_step: pd.Timedelta = _FIVE_MIN
     start: pd.Timestamp | None = None
     end: pd.Timestamp | None = None
-    #: Grid the need is planned on; default the HPA's sync (``planning.refine``).
+    #: Grid the need is planned on; default the operator's (``planning.plan_resolution``).
     plan_step: pd.Timedelta | None = None
     #: HPA-alone ladder targets (fractions); default base target down to 10 %.
     ladder: tuple[float, ...] | None = None
@@ -147,7 +147,10 @@ def run(
     if setup.adjust is not None:
         rolling = setup.adjust(rolling, history)
     say("planning floors")
-    want = setup.plan_step if setup.plan_step is not None else sync
+    # The operator's planning grid (plans.plan_policy, docs/policy.md "Planning
+    # resolution"), so a back-test replays the floors the operator would set.
+    n_h = rolling.point.shape[1]
+    want = setup.plan_step if setup.plan_step is not None else planning.plan_resolution(fstep, n_h)
     pstep = plan_step_for(fstep, want)
     if setup.plan_step is not None and pstep != setup.plan_step:
         raise InputError(
@@ -157,7 +160,8 @@ def run(
     kw = {"per_replica": setup.per_replica, "base_target": base}
     fc = floors(spec, rolling, grid, bounds, plan_step=pstep, **kw)
     orc = bt.oracle_forecasts(history, times, horizon=horizon)
-    o_step = plan_step_for(orc.step, want)
+    o_want = setup.plan_step or planning.plan_resolution(orc.step, orc.point.shape[1])
+    o_step = plan_step_for(orc.step, o_want)
     of = floors(spec, orc, [oracle_knobs], bounds, plan_step=o_step, oracle=True, **kw)
     demand = bt.sim_demand(history, start, end, sync)
     n = len(demand)

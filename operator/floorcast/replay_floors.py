@@ -69,7 +69,9 @@ def floors(
                 for t, p, u in zip(rolling.times, rolling.point, rolling.upper, strict=True)
             ]
         )
-    fine = planning.refine(sized, rolling.step, plan_step, centred=rolling.centred)
+    fine = planning.cover_intervals(
+        planning.refine(sized, rolling.step, plan_step, centred=rolling.centred)
+    )
     h = fine.shape[1]
     load = np.repeat(fine, g_n, axis=0)  # (J*G, H), forecast-major
     factors: np.ndarray | float = 1.0

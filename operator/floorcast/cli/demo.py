@@ -91,7 +91,7 @@ def _summary(plans: dict[str, FloorPlan], console: Console) -> None:
     )
     for name, p in plans.items():
         floor = p.schedule.floor[0, : int(p.schedule.covered[0])]
-        hours = p.forecast.step.total_seconds() / 3600.0
+        hours = p.schedule.step.total_seconds() / 3600.0
         summary.add_row(
             name,
             p.spec.mode,

@@ -33,6 +33,8 @@ def draw_plan(result: FloorPlan, *, title: str) -> Figure:
     """
     fc = result.forecast
     times = _naive(fc.times)
+    # The floor is planned on a finer grid than the forecast (plans.refined_load).
+    ptimes = _naive(result.schedule.times)
     floor = result.schedule.floor[0]
     required = result.schedule.required[0]
     spec = result.spec
@@ -44,8 +46,8 @@ def draw_plan(result: FloorPlan, *, title: str) -> Figure:
         fig, (ax, ax2) = plt.subplots(
             2, 1, figsize=(11, 6.5), sharex=True, gridspec_kw={"height_ratios": [3, 2]}
         )
-        ax.fill_between(times, 0, carried, step="post", color=ps.FLOOR, alpha=0.12, lw=0)
-        ax.step(times, carried, where="post", color=ps.FLOOR, lw=ps.FLOOR_LW,
+        ax.fill_between(ptimes, 0, carried, step="post", color=ps.FLOOR, alpha=0.12, lw=0)
+        ax.step(ptimes, carried, where="post", color=ps.FLOOR, lw=ps.FLOOR_LW,
                 label=ps.WORDS["carried"])  # fmt: skip
         if fc.lower is not None and fc.upper is not None:
             ax.fill_between(times, fc.lower, fc.upper, color=ps.BAND, lw=0,
@@ -57,16 +59,16 @@ def draw_plan(result: FloorPlan, *, title: str) -> Figure:
         ax.set_ylim(bottom=0)
         ax.set_title(title)
 
-        ax2.step(times, required, where="post", color=ps.REQUIRED, lw=ps.THIN_LW,
+        ax2.step(ptimes, required, where="post", color=ps.REQUIRED, lw=ps.THIN_LW,
                  label=ps.WORDS["required"])  # fmt: skip
-        ax2.step(times, floor, where="post", color=ps.FLOOR, lw=ps.FLOOR_LW,
+        ax2.step(ptimes, floor, where="post", color=ps.FLOOR, lw=ps.FLOOR_LW,
                  label=ps.WORDS["floor"])  # fmt: skip
         top = int(max(np.max(floor), np.max(required)))
         if result.bounds.ceiling <= 2 * top:  # a far-away ceiling would flatten the plot
             ax2.axhline(result.bounds.ceiling, color=ps.CEILING, lw=ps.THIN_LW, ls=":",
                         label=ps.WORDS["ceiling"])  # fmt: skip
             top = max(top, result.bounds.ceiling)
-        covered_end = times[min(int(result.schedule.covered[0]), len(times)) - 1]
+        covered_end = ptimes[min(int(result.schedule.covered[0]), len(ptimes)) - 1]
         if covered_end < times[-1]:
             hatch = {"facecolor": "none", "edgecolor": ps.UNCOVERED, "hatch": "///", "lw": 0}
             ax.axvspan(covered_end, times[-1], **hatch)

@@ -67,6 +67,11 @@ def _peak(plan: FloorPlan, now: pd.Timestamp) -> pd.Timestamp:
         s.required.shape[1], i + planning.window_steps(pd.Timedelta(spec.lead_time), s.step) + 1
     )
     j = lo + int(np.argmax(s.required[0, lo:hi]))
+    # A grid instant stands for the interval up to the next (planning.cover_intervals):
+    # a need reached by a rising line first shows one instant early; the peak is the
+    # next instant when that one needs as much.
+    if j + 1 < hi and s.required[0, j + 1] == s.required[0, j]:
+        j += 1
     return s.start + j * s.step
 
 

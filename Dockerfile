@@ -1,26 +1,32 @@
-# floorcast operator image. Not built in this repository's CI (no container engine
-# there); tests/test_packaging.py checks this file and the wheel it installs.
+# floorcast operator image. e2e/test_image.py builds it in this repository's CI
+# without a Docker engine (e2e/image.py: buildah on a Debian base) and runs it the way
+# the chart does; .github/workflows/release.yml builds and pushes it on a tag.
 #
 #   docker build -t floorcast:0.1.0 .
-#   docker run --rm floorcast:0.1.0 --help
+#   docker run --rm --entrypoint floorcast floorcast:0.1.0 --version
 #
 # Stage 1 builds the wheel and installs it with its runtime dependencies (no dev
 # extras) into a virtualenv; stage 2 copies only that virtualenv, so no compiler,
 # pip cache or source tree is left in the final image.
-ARG PYTHON_IMAGE=python:3.12-slim
+#
+# BASE_IMAGE is any Debian-like image with python3 (>= 3.11, pyproject's
+# requires-python), its venv module, groupadd and useradd. The default is the usual
+# slim Python image; e2e/image.py passes a base it builds from Debian's own packages
+# when no registry is reachable.
+ARG BASE_IMAGE=python:3.12-slim
 
-FROM ${PYTHON_IMAGE} AS build
+FROM ${BASE_IMAGE} AS build
 ENV PIP_NO_CACHE_DIR=1 PIP_DISABLE_PIP_VERSION_CHECK=1
 WORKDIR /src
 COPY pyproject.toml README.md LICENSE ./
 COPY operator ./operator
-RUN python -m venv /opt/floorcast \
+RUN python3 -m venv /opt/floorcast \
  && /opt/floorcast/bin/pip install --upgrade pip \
  && /opt/floorcast/bin/pip install . \
  && /opt/floorcast/bin/pip uninstall --yes pip setuptools wheel \
  && find /opt/floorcast -name '__pycache__' -prune -exec rm -rf {} +
 
-FROM ${PYTHON_IMAGE}
+FROM ${BASE_IMAGE}
 LABEL org.opencontainers.image.title="floorcast" \
       org.opencontainers.image.description="Raises HPA minReplicas ahead of forecast peaks" \
       org.opencontainers.image.licenses="MIT"

@@ -141,3 +141,22 @@ def test_image_size_is_bounded(built: str) -> None:
     print(f"\n[image] {built}: {size / 1e6:.0f} MB uncompressed (bound "
           f"{MAX_IMAGE_BYTES / 1e6:.0f} MB)", file=sys.stderr)  # fmt: skip
     assert 0 < size <= MAX_IMAGE_BYTES
+
+
+def test_release_workflow_builds_and_pushes_the_dockerfile_on_a_tag() -> None:
+    # Static: the CI service that runs this file has a container engine; here only
+    # its shape can be checked. PyYAML (YAML 1.1) reads the key `on` as True.
+    import yaml
+
+    wf = yaml.safe_load((image.ROOT / ".github" / "workflows" / "release.yml").read_text())
+    trigger = wf.get("on", wf.get(True))
+    assert trigger["push"]["tags"], "the release must run on a tag"
+    steps = wf["jobs"]["image"]["steps"]
+    builds = [s for s in steps if str(s.get("uses", "")).startswith("docker/build-push-action")]
+    assert any(s["with"].get("push") is True for s in builds)
+    # No BASE_IMAGE override: released images keep the Dockerfile's usual base.
+    assert all("BASE_IMAGE" not in str(s["with"].get("build-args", "")) for s in builds)
+    script = "\n".join(str(s.get("run", "")) for s in steps)
+    user = image.chart_user()
+    assert f"--user {user.uid}:{user.gid}" in script and "--read-only" in script
+    assert "--version" in script and "--help" in script

@@ -1,7 +1,7 @@
 """The container image recipe and the wheel it installs.
 
-No container engine is available here, so the image itself is never built in CI
-(docs/operations.md says so). What can be checked is: the Dockerfile's final stage
+The image itself is built and run by e2e/test_image.py (buildah, no Docker engine).
+What is checked here, without building: the Dockerfile's final stage
 runs as a non-root user with `floorcast run` as its entrypoint and installs without
 dev extras, and the wheel `pip install .` would install carries the code and the
 package data the operator and the demo need.

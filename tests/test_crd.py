@@ -75,8 +75,9 @@ def test_status_has_the_design_fields(schema):
     status = schema["properties"]["status"]["properties"]
     assert set(status) == {
         "floor", "baseline", "proposedFloor", "nextChange", "forecastGenerated",
-        "lastAppliedTime", "observedGeneration", "conditions",
+        "lastAppliedTime", "observedGeneration", "conditions", "liveCorrection",
     }  # fmt: skip
+    assert set(status["liveCorrection"]["properties"]) == {"factor", "reason", "message"}
     cond = status["conditions"]["items"]
     # Kubernetes API conventions' condition shape (metav1.Condition).
     assert set(cond["properties"]) == {
@@ -128,7 +129,7 @@ def test_every_string_pattern_is_the_one_policy_py_applies(schema):
     assert {p for p, v in got.items() if v == policy._DNS_SUBDOMAIN.pattern} == names
     assert got["forecast.configMapRef.key"] == policy._CONFIGMAP_KEY.pattern
     durations = {p for p, v in got.items() if v == DURATION_PATTERN}
-    assert durations == {"leadTime", "holdTime", "forecast.maxAge"}
+    assert durations == {"leadTime", "holdTime", "forecast.maxAge", "liveCorrection.halfLife"}
     assert set(got) == names | durations | {"forecast.configMapRef.key", "forecast.url"}
     # What the name pattern refuses, policy.py refuses too, with the field's path.
     for bad in ("Web_1", "web.", "-web", "fc/x"):
@@ -171,6 +172,7 @@ def test_string_lengths_are_the_crd_max_lengths(schema):
             "leadTime",
             "holdTime",
             "forecast.maxAge",
+            "liveCorrection.halfLife",
             "plannedEvents[].start",
             "plannedEvents[].end",
         }

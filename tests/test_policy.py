@@ -258,6 +258,7 @@ def test_spec_defaults_match_design() -> None:
         "headroom": 0.1,
         "useUpperBound": True,
         "mode": "DryRun",
+        "liveCorrection": {"enabled": False, "halfLife": "30m", "min": 0.5, "max": 2.0},
     }
 
 

@@ -8,7 +8,7 @@ disagree about what a policy implies.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -132,6 +132,33 @@ class FloorPlan:
                 ),
             },
         }
+
+
+def window_need(plan: FloorPlan, *, band: bool = True) -> float:
+    """The largest un-rounded need in [at − holdTime, at + leadTime]: load × (1 +
+    headroom) × event factor / perReplica on the planning grid, before the ceil.
+
+    The live correction multiplies it (``core.correction.corrected_floor``);
+    ``band=False`` reads the forecast's value instead of the band the policy plans on.
+    """
+    spec, s = plan.spec, plan.schedule
+    use = spec if band else replace(spec, use_upper_bound=False)
+    load = refined_load(use, plan.forecast, s.step)
+    ev = policy_event_factors(spec, pd.date_range(s.start, periods=len(load), freq=s.step))
+    i = s.index_at(plan.at)
+    lo = max(0, i - planning.window_steps(pd.Timedelta(spec.hold_time), s.step))
+    hi = i + planning.window_steps(pd.Timedelta(spec.lead_time), s.step) + 1
+    need = load[lo:hi] * ev[lo:hi] * (1.0 + spec.headroom) / plan.per_replica
+    return float(need.max())
+
+
+def point_at(plan: FloorPlan) -> float:
+    """The forecast's value at ``plan.at`` on the planning grid: what the live
+    correction compares the observed load with (``planning.refine``, no band)."""
+    s = plan.schedule
+    fc = plan.forecast
+    line = planning.refine(np.asarray(fc.values, dtype=np.float64)[None, :], fc.step, s.step)
+    return float(line[0, min(s.index_at(plan.at), line.shape[1] - 1)])
 
 
 def plan_policy(

@@ -33,6 +33,7 @@ import yaml
 from floorcast.durations import format_duration
 from floorcast.policy_fields import (  # noqa: F401  (MAX_* and PolicyError re-exported)
     _M,
+    MAX_CORRECTION,
     MAX_DURATION,
     MAX_DURATION_LENGTH,
     MAX_EVENT_NAME_LENGTH,
@@ -60,6 +61,12 @@ DEFAULT_HOLD_TIME = timedelta(minutes=15)
 DEFAULT_HEADROOM = 0.1
 DEFAULT_USE_UPPER_BOUND = True
 DEFAULT_MODE: Mode = "DryRun"
+#: Live correction (docs/policy.md, "Live correction"); the choice of each default is
+#: measured in docs/backtest.md.
+DEFAULT_CORRECTION_ENABLED = False
+DEFAULT_CORRECTION_HALF_LIFE = timedelta(minutes=30)
+DEFAULT_CORRECTION_MIN = 0.5
+DEFAULT_CORRECTION_MAX = 2.0
 DEFAULT_NAMESPACE = "default"
 
 # ObjectMeta fields, so a manifest exported with ``kubectl get -o yaml`` still parses.
@@ -70,7 +77,7 @@ _METADATA_FIELDS = (
 )  # fmt: skip
 _SPEC_FIELDS = (
     "targetRef", "forecast", "capacity", "leadTime", "holdTime", "headroom",
-    "useUpperBound", "minReplicas", "maxReplicas", "mode", "plannedEvents",
+    "useUpperBound", "minReplicas", "maxReplicas", "mode", "plannedEvents", "liveCorrection",
 )  # fmt: skip
 _DNS_SUBDOMAIN = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$")
 _DNS_LABEL = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?$")
@@ -107,6 +114,17 @@ class PlannedEvent:
 
 
 @dataclass(frozen=True)
+class LiveCorrection:
+    """Scale the forecast for the next lead + hold window by the smoothed ratio of the
+    load the HPA reports to the forecast (``core.correction``), clamped to [low, high]."""
+
+    enabled: bool = DEFAULT_CORRECTION_ENABLED
+    half_life: timedelta = DEFAULT_CORRECTION_HALF_LIFE
+    low: float = DEFAULT_CORRECTION_MIN
+    high: float = DEFAULT_CORRECTION_MAX
+
+
+@dataclass(frozen=True)
 class PolicySpec:
     target_name: str
     forecast: ForecastSource
@@ -119,6 +137,7 @@ class PolicySpec:
     max_replicas: int | None = None
     mode: Mode = DEFAULT_MODE
     planned_events: tuple[PlannedEvent, ...] = ()
+    live_correction: LiveCorrection = LiveCorrection()
 
 
 @dataclass(frozen=True)
@@ -141,6 +160,12 @@ def spec_defaults() -> dict[str, Any]:
         "headroom": DEFAULT_HEADROOM,
         "useUpperBound": DEFAULT_USE_UPPER_BOUND,
         "mode": DEFAULT_MODE,
+        "liveCorrection": {
+            "enabled": DEFAULT_CORRECTION_ENABLED,
+            "halfLife": format_duration(DEFAULT_CORRECTION_HALF_LIFE),
+            "min": DEFAULT_CORRECTION_MIN,
+            "max": DEFAULT_CORRECTION_MAX,
+        },
     }
 
 
@@ -178,6 +203,24 @@ def parse_spec(spec: _M, *, source: str = "policy") -> PolicySpec:
         max_replicas=high,
         mode=cast(Mode, mode),
         planned_events=_events(r, s.get("plannedEvents"), "spec.plannedEvents"),
+        live_correction=_live_correction(r, s),
+    )
+
+
+def _live_correction(r: _Reader, s: _M) -> LiveCorrection:
+    if s.get("liveCorrection") is None:
+        return LiveCorrection()
+    c = r.child(s, p := "spec.liveCorrection", ("enabled", "halfLife", "min", "max"))
+    return LiveCorrection(
+        enabled=r.boolean(c, f"{p}.enabled", DEFAULT_CORRECTION_ENABLED),
+        half_life=r.duration(
+            c, f"{p}.halfLife", default=DEFAULT_CORRECTION_HALF_LIFE, allow_zero=False
+        ),
+        low=r.number(c, f"{p}.min", above=0, maximum=1, default=DEFAULT_CORRECTION_MIN),
+        high=r.number(
+            c, f"{p}.max", above=1, maximum=MAX_CORRECTION, inclusive=True,
+            default=DEFAULT_CORRECTION_MAX,
+        ),
     )
 
 

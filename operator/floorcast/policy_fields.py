@@ -36,6 +36,9 @@ MAX_FACTOR = 1000.0
 MAX_PER_REPLICA = 1e12
 MAX_REPLICAS = 2**31 - 1
 MAX_EVENTS = 100
+#: liveCorrection.max at most 10: a forecast off by more than 10× is a broken
+#: forecast, not a level error to correct (common practice, no source).
+MAX_CORRECTION = 10.0
 _RFC3339 = re.compile(r"^\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d+)?([Zz]|[+-]\d{2}:\d{2})$")
 
 

@@ -18,9 +18,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from floorcast import plans
+from floorcast import plans, replay_live
 from floorcast.core import backtest as bt
-from floorcast.core import frontier, hpa_model, planning
+from floorcast.core import correction, frontier, hpa_model, planning
 from floorcast.core.series import Series
 from floorcast.durations import format_duration
 from floorcast.errors import InputError
@@ -66,6 +66,11 @@ class Setup:
     #: HPA-alone ladder targets (fractions); default base target down to 10 %.
     ladder: tuple[float, ...] | None = None
     adjust: Adjust | None = None
+    #: The operator's reconcile interval: how often the live correction observes.
+    interval: pd.Timedelta = replay_live.DEFAULT_INTERVAL
+    #: How low a live-correction factor below 1 may take the floor; default the
+    #: operator's rule (``core.correction.KEEP``). For measuring the alternatives.
+    correction_keep: str | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -93,6 +98,9 @@ class Result:
     #: Per floorcast-like row name: the equal-saturation HPA alone and the saving.
     tuned: dict[str, dict[str, Any]] = field(default_factory=dict)
     plan_step: pd.Timedelta = _SYNC
+    #: (G, T) the live-correction factor of each floorcast row (NaN without enough
+    #: evidence), or None when the policy does not correct.
+    live_factor: np.ndarray | None = None
 
     def row(self, name: str) -> int:
         return self.names.index(name)
@@ -198,6 +206,22 @@ def run(
     trace = hpa_model.simulate(
         dem[:k], mins[:k], per_replica=setup.per_replica, hpa=hpa, ready_delay_steps=delay
     )
+    live = None
+    if spec.live_correction.enabled:
+        # The floorcast rows again, with the operator's live correction (replay_live):
+        # it observes what the uncorrected replay's HPA reported up to each instant.
+        rows = [2, *range(4, 4 + len(grid) - 1)]
+        fixed, live = replay_live.correct(
+            spec, rolling, grid, bounds, planned=mins[rows], demand=demand,
+            scaled=trace.scaled[rows], sim_start=start, sync=sync, plan_step=pstep,
+            per_replica=setup.per_replica, base_target=base, interval=setup.interval,
+            keep_rule=setup.correction_keep or correction.KEEP,
+        )  # fmt: skip
+        mins[rows] = fixed
+        again = hpa_model.simulate(dem[rows], fixed, per_replica=setup.per_replica, hpa=hpa,
+                                   ready_delay_steps=delay)  # fmt: skip
+        for name in ("replicas", "ready", "scaled"):
+            getattr(trace, name)[rows] = getattr(again, name)
     if extra:
         # Whoever lowers the target raises maxReplicas with it, or the cap, not the
         # target, would decide the rung: the rungs share the cap scaled for the lowest.
@@ -243,6 +267,7 @@ def run(
         ladder=lad,
         tuned=tuned,
         plan_step=pstep,
+        live_factor=live,
     )
 
 

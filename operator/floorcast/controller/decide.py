@@ -19,9 +19,9 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
-import numpy as np
-import pandas as pd
-
+from floorcast.controller import live
+from floorcast.controller.checks import MAX_CLOCK_SKEW, forecast_problem  # noqa: F401
+from floorcast.controller.checks import peak as peak_at
 from floorcast.controller.conditions import APPLIED, FORECAST_AVAILABLE, READY, Condition, render
 from floorcast.controller.ownership import Ownership, ownership, restore
 from floorcast.controller.state import (  # noqa: F401  (re-exported)
@@ -50,62 +50,9 @@ from floorcast.controller.state import (  # noqa: F401  (re-exported)
     HpaState,
     Observed,
 )
-from floorcast.core import planning
-from floorcast.durations import format_duration
 from floorcast.errors import InputError
-from floorcast.plans import FloorPlan, plan_policy
-from floorcast.policy import Policy
+from floorcast.plans import plan_policy
 from floorcast.timefmt import iso
-
-
-def _peak(plan: FloorPlan, now: pd.Timestamp) -> pd.Timestamp:
-    """When the need behind the current floor peaks, for the Event text."""
-    s, spec = plan.schedule, plan.spec
-    i = s.index_at(now)
-    lo = max(0, i - planning.window_steps(pd.Timedelta(spec.hold_time), s.step))
-    hi = min(
-        s.required.shape[1], i + planning.window_steps(pd.Timedelta(spec.lead_time), s.step) + 1
-    )
-    j = lo + int(np.argmax(s.required[0, lo:hi]))
-    # A grid instant stands for the interval up to the next (planning.cover_intervals):
-    # a need reached by a rising line first shows one instant early; the peak is the
-    # next instant when that one needs as much.
-    if j + 1 < hi and s.required[0, j + 1] == s.required[0, j]:
-        j += 1
-    return s.start + j * s.step
-
-
-#: How far ahead of the operator's clock a forecast's ``generated`` may be: clocks
-#: drift by seconds, not minutes (common practice, no source). A forecast "from the
-#: future" would otherwise pass every ``maxAge`` check for as long as it claims.
-MAX_CLOCK_SKEW = pd.Timedelta(minutes=5)
-
-
-def _forecast_problem(obs: Observed, policy: Policy) -> tuple[str, str] | None:
-    f = obs.forecast
-    if f.series is None:
-        return (f.reason or FORECAST_MISSING, f.message or "no forecast")
-    spec = policy.spec
-    if f.series.generated is not None and f.series.generated > obs.now + MAX_CLOCK_SKEW:
-        return (
-            FORECAST_INVALID,
-            f"forecast generated at {iso(f.series.generated)} is more than "
-            f"{format_duration(MAX_CLOCK_SKEW)} in the future (now {iso(obs.now)}); "
-            "check the producer's clock",
-        )
-    if f.series.generated is not None and obs.now - f.series.generated > spec.forecast.max_age:
-        return (
-            FORECAST_STALE,
-            f"forecast generated at {iso(f.series.generated)} is older than "
-            f"maxAge {format_duration(spec.forecast.max_age)}",
-        )
-    if f.series.end < obs.now + spec.lead_time:
-        return (
-            FORECAST_STALE,
-            f"forecast ends at {iso(f.series.end)}, before now + leadTime "
-            f"({format_duration(spec.lead_time)})",
-        )
-    return None
 
 
 def decide(obs: Observed) -> Decision:
@@ -181,7 +128,7 @@ def decide(obs: Observed) -> Decision:
     dry = obs.operator_dry_run or policy.spec.mode == "DryRun"
     series = obs.forecast.series
     age = (obs.now - series.generated).total_seconds() if series and series.generated else None
-    problem = _forecast_problem(obs, policy)
+    problem = forecast_problem(obs, policy)
     plan = None
     if problem is None:
         if obs.per_replica_error:
@@ -247,11 +194,14 @@ def decide(obs: Observed) -> Decision:
             age=age,
         )
 
-    floor = plan.floor_now
+    corrected = live.apply(obs, plan)  # the plan's floor unless liveCorrection acts
+    floor = corrected.floor
+    if corrected.status is not None:
+        extra["liveCorrection"] = corrected.status
     nxt = plan.next_change
     if nxt is not None:
         extra["nextChange"] = {"at": iso(nxt.at), "replicas": nxt.new}
-    peak = iso(_peak(plan, obs.now))
+    peak = iso(peak_at(plan, obs.now))
     note = f"; {obs.forecast.note}" if obs.forecast.note else ""
     fc_ok = _c(FORECAST_AVAILABLE, True, FORECAST_OK, f"forecast until {iso(series.end)}{note}")
     if dry:
@@ -267,7 +217,7 @@ def decide(obs: Observed) -> Decision:
         current = own.baseline if patch else hpa.min_replicas
         extra["proposedFloor"] = floor
         said = (
-            f"would set minReplicas {current} → {floor} (peak at {peak})"
+            f"would set minReplicas {current} → {floor} (peak at {peak}{corrected.note})"
             if floor != current
             else f"would keep minReplicas at {current}"
         )
@@ -289,6 +239,7 @@ def decide(obs: Observed) -> Decision:
             own=own,
             floor=floor,
             age=age,
+            corrected=corrected,
         )
 
     extra["floor"] = floor
@@ -304,7 +255,8 @@ def decide(obs: Observed) -> Decision:
         patch = restore(own, hpa)  # at the baseline: leave the HPA as its owner had it
     if hpa.min_replicas != floor:
         verb = "raised" if floor > hpa.min_replicas else "lowered"
-        why = f" (peak at {peak})" if floor > hpa.min_replicas else f" (baseline {own.baseline})"
+        why = (f" (peak at {peak}{corrected.note})" if floor > hpa.min_replicas
+               else f" (baseline {own.baseline}{corrected.note})")  # fmt: skip
         events.append(
             Event(
                 "Normal",
@@ -324,6 +276,7 @@ def decide(obs: Observed) -> Decision:
         own=own,
         floor=floor,
         age=age,
+        corrected=corrected,
     )
 
 
@@ -353,6 +306,7 @@ def _finish(
     own: Ownership | None = None,
     floor: int | None = None,
     age: float | None = None,
+    corrected: live.Outcome | None = None,
 ) -> Decision:
     prev = obs.status or {}
     baseline = own.baseline if own is not None else None
@@ -383,6 +337,9 @@ def _finish(
         floor=floor,
         baseline=baseline,
         forecast_age_seconds=age,
+        live_factor=corrected.factor if corrected is not None else None,
+        # No plan this time: the EWMA's memory stays as it was (it ages by time).
+        live_memory=corrected.memory if corrected is not None else obs.live,
     )
 
 

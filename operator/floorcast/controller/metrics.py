@@ -12,6 +12,8 @@ _L = ("namespace", "policy")
 FLOOR = Gauge("floorcast_floor_replicas", "Floor in force (or proposed, in dry run)", _L)
 BASELINE = Gauge("floorcast_baseline_replicas", "The owner's baseline minReplicas", _L)
 FORECAST_AGE = Gauge("floorcast_forecast_age_seconds", "now - forecast generated", _L)
+LIVE_FACTOR = Gauge("floorcast_live_correction_factor",
+                    "Live correction factor in use (observed / forecast load)", _L)  # fmt: skip
 PATCHES = Counter("floorcast_hpa_patches_total", "HPA patches sent", _L)
 ERRORS = Counter("floorcast_reconcile_errors_total", "Reconciles that failed", ("reason",))
 DURATION = Histogram("floorcast_reconcile_duration_seconds", "Time of one reconcile",
@@ -21,7 +23,8 @@ DURATION = Histogram("floorcast_reconcile_duration_seconds", "Time of one reconc
 def record(namespace: str, name: str, d: Decision) -> None:
     labels = (namespace, name)
     for gauge, value in ((FLOOR, d.floor), (BASELINE, d.baseline),
-                         (FORECAST_AGE, d.forecast_age_seconds)):  # fmt: skip
+                         (FORECAST_AGE, d.forecast_age_seconds),
+                         (LIVE_FACTOR, d.live_factor)):  # fmt: skip
         if value is None:
             with contextlib.suppress(KeyError):
                 gauge.remove(*labels)
@@ -31,7 +34,7 @@ def record(namespace: str, name: str, d: Decision) -> None:
 
 def forget(namespace: str, name: str) -> None:
     """A deleted policy must not leave a stale series behind."""
-    for gauge in (FLOOR, BASELINE, FORECAST_AGE):
+    for gauge in (FLOOR, BASELINE, FORECAST_AGE, LIVE_FACTOR):
         with contextlib.suppress(KeyError):
             gauge.remove(namespace, name)
 

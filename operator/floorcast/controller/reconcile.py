@@ -40,6 +40,7 @@ from floorcast.controller.state import (
     Decision,
     ForecastState,
     HpaState,
+    LiveMemory,
     Observed,
 )
 from floorcast.kube import policies
@@ -84,6 +85,8 @@ class Runtime:
     #: lag behind our own write (a timer firing before the watch event arrives); deciding
     #: on the stale copy would rewrite the status with a new lastTransitionTime.
     written: dict[tuple[str, str], dict[str, Any]] = field(default_factory=dict)
+    #: The live correction's EWMA per policy (controller/live.py), between reconciles.
+    live: dict[tuple[str, str], LiveMemory] = field(default_factory=dict)
 
     def lock(self, namespace: str, name: str) -> threading.Lock:
         with self._guard:
@@ -93,6 +96,7 @@ class Runtime:
         with self._guard:
             self._locks.pop((namespace, name), None)
             self.written.pop((namespace, name), None)
+            self.live.pop((namespace, name), None)
         metrics.forget(namespace, name)
 
 
@@ -178,6 +182,7 @@ def observe(rt: Runtime, body: Mapping[str, Any], *, deleting: bool,
         generation=meta.get("generation"), policy_error=err,
         operator_dry_run=rt.settings.dry_run, conflict_with=conflict, deleting=deleting,
         per_replica=per_replica, per_replica_error=per_replica_error,
+        live=rt.live.get((ns, name)),
     )  # fmt: skip
 
 
@@ -261,6 +266,12 @@ def _reconcile_locked(rt: Runtime, body: Mapping[str, Any], deleting: bool,
             continue
         break
     _report(rt, ns, name, meta.get("uid"), d, obs.status)
+    # The decision that was carried out moves the live correction's EWMA on (a 409
+    # retry re-decided from the old memory, so no observation counts twice).
+    if d.live_memory is None:
+        rt.live.pop((ns, name), None)
+    else:
+        rt.live[(ns, name)] = d.live_memory
     return d
 
 

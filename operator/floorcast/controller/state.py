@@ -29,6 +29,7 @@ STATUS_KEYS = (
     "nextChange",
     "forecastGenerated",
     "lastAppliedTime",
+    "liveCorrection",
     "conditions",
 )
 
@@ -63,6 +64,24 @@ class HpaState:
     #: the scaleTargetRef as (apiVersion, kind, name).
     cpu_target_utilization: int | None = None
     scale_target: tuple[str, str, str] | None = None
+    #: From the HPA's status, for the live correction: the CPU metric's current
+    #: averageUtilization (percent), or why it cannot be read (several CPU series);
+    #: status.currentReplicas and status.lastScaleTime.
+    cpu_current_utilization: int | None = None
+    cpu_current_error: str | None = None
+    current_replicas: int | None = None
+    last_scale_time: pd.Timestamp | None = None
+
+
+@dataclass(frozen=True)
+class LiveMemory:
+    """The live correction's EWMA between reconciles (``core.correction.State`` of one
+    workload) and when it was last updated."""
+
+    observed: float
+    forecast: float
+    weight: float
+    at: pd.Timestamp
 
 
 @dataclass(frozen=True)
@@ -92,6 +111,7 @@ class Observed:
     deleting: bool = False
     per_replica: float | None = None
     per_replica_error: str | None = None
+    live: LiveMemory | None = None
 
 
 @dataclass(frozen=True)
@@ -130,3 +150,6 @@ class Decision:
     floor: int | None = None
     baseline: int | None = None
     forecast_age_seconds: float | None = None
+    #: The live correction's factor in use (None: not correcting) and its memory.
+    live_factor: float | None = None
+    live_memory: LiveMemory | None = None

@@ -8,6 +8,7 @@ as a precondition: if someone edited the HPA since we read it, the API server an
 
 from __future__ import annotations
 
+import pandas as pd
 from kubernetes import client as k8s
 from kubernetes.client.rest import ApiException
 
@@ -31,6 +32,9 @@ def read_hpa(api: k8s.ApiClient, namespace: str, name: str, *, timeout: float) -
             return HpaState(exists=False)
         raise
     ref = h.spec.scale_target_ref
+    util, util_error = _cpu_current(h)
+    st = h.status
+    last = st.last_scale_time if st is not None else None
     return HpaState(
         exists=True,
         min_replicas=h.spec.min_replicas if h.spec.min_replicas is not None else 1,
@@ -39,6 +43,10 @@ def read_hpa(api: k8s.ApiClient, namespace: str, name: str, *, timeout: float) -
         resource_version=h.metadata.resource_version,
         cpu_target_utilization=_cpu_target(h),
         scale_target=(ref.api_version or "", ref.kind, ref.name) if ref else None,
+        cpu_current_utilization=util,
+        cpu_current_error=util_error,
+        current_replicas=st.current_replicas if st is not None else None,
+        last_scale_time=pd.Timestamp(last).tz_convert("UTC") if last is not None else None,
     )
 
 
@@ -49,6 +57,20 @@ def _cpu_target(h: k8s.V2HorizontalPodAutoscaler) -> int | None:
         if r is not None and r.name == "cpu" and r.target.type == "Utilization":
             return r.target.average_utilization
     return None
+
+
+def _cpu_current(h: k8s.V2HorizontalPodAutoscaler) -> tuple[int | None, str | None]:
+    """status.currentMetrics' CPU Resource averageUtilization, for the live correction;
+    several CPU series are an error (which one is the load?), none is no value."""
+    found = [m.resource.current.average_utilization
+             for m in (h.status.current_metrics or [] if h.status else [])
+             if m.type == "Resource" and m.resource is not None and m.resource.name == "cpu"
+             and m.resource.current is not None
+             and m.resource.current.average_utilization is not None]  # fmt: skip
+    if len(found) > 1:
+        return None, (f"the HPA reports {len(found)} CPU utilization series in "
+                      "status.currentMetrics; expected one")  # fmt: skip
+    return (found[0] if found else None), None
 
 
 def patch_hpa(

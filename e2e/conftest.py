@@ -102,10 +102,15 @@ def control_plane() -> Iterator[Cluster]:
         raise ControlPlaneError(
             f"building the control plane failed: {_build_error}"
         ) from _build_error
-    cp = ControlPlane()
+    yield from _checked(ControlPlane(), "up")
+
+
+def _checked(cp: ControlPlane, label: str) -> Iterator[ControlPlane]:
+    """Start ``cp``, yield it, then fail if a component crashed meanwhile or if
+    stopping left any process behind."""
     cp.start()
     timings = ", ".join(f"{k} {v:.1f}s" for k, v in cp.startup_seconds.items())
-    print(f"\n[controlplane] up at {cp.server} ({timings})", file=sys.stderr)
+    print(f"\n[controlplane] {label} at {cp.server} ({timings})", file=sys.stderr)
     crashed: ControlPlaneError | None = None
     try:
         yield cp
@@ -140,24 +145,7 @@ def living_plane() -> Iterator[ControlPlane]:
     if _build_error is not None:
         raise ControlPlaneError(f"building the control plane failed: {_build_error}")
     cp = ControlPlane(living=LIVING, hpa_sync_period=LIVING_HPA_SYNC)
-    cp.start()
-    timings = ", ".join(f"{k} {v:.1f}s" for k, v in cp.startup_seconds.items())
-    print(f"\n[controlplane] living cluster up at {cp.server} ({timings})", file=sys.stderr)
-    crashed: ControlPlaneError | None = None
-    try:
-        yield cp
-        try:
-            cp.check_alive()
-        except ControlPlaneError as exc:
-            crashed = exc
-    finally:
-        pids = cp.pids()
-        cp.stop()
-    leaked = {name: pid for name, pid in pids.items() if pid_alive(pid)}
-    if crashed is not None:
-        raise crashed
-    if leaked:
-        raise ControlPlaneError(f"processes still running after stop(): {leaked}")
+    yield from _checked(cp, "living cluster up")
 
 
 @pytest.fixture(scope="session")

@@ -18,7 +18,7 @@ from typing import Any
 from kubernetes import client as k8s
 
 from e2e.controlplane.runner import ControlPlane
-from e2e.controlplane.tokens import service_account_credentials
+from e2e.controlplane.tokens import bind_cluster_role, service_account_credentials
 from e2e.load import Trace, is_ready
 from e2e.operator_env import CRD, RBAC, Env
 
@@ -49,12 +49,7 @@ def living_env(cp: ControlPlane, tmp: Path, api: k8s.ApiClient) -> Iterator[Env]
                 raise
             time.sleep(0.5)
     creds = service_account_credentials(cp, ns, "floorcast-operator", tmp, create=True)
-    k8s.RbacAuthorizationV1Api(api).create_namespaced_role_binding(ns, {
-        "metadata": {"name": "floorcast-operator"},
-        "roleRef": {"apiGroup": "rbac.authorization.k8s.io", "kind": "ClusterRole",
-                    "name": "floorcast-operator"},
-        "subjects": [{"kind": "ServiceAccount", "name": creds.name, "namespace": ns}],
-    })  # fmt: skip
+    bind_cluster_role(api, ns, creds.name)
     env = Env(api, ns, creds.kubeconfig, tmp, [])
     try:
         yield env

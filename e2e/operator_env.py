@@ -24,6 +24,7 @@ import pytest
 from kubernetes import client as k8s
 from kubernetes.client.rest import ApiException
 
+from e2e.controlplane.tokens import bind_cluster_role
 from e2e.helpers import eventually
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -187,12 +188,7 @@ def env_fixture(
     operator_cluster, api_client, namespace, service_account, tmp_path
 ) -> Iterator[Env]:
     creds = service_account(namespace)
-    k8s.RbacAuthorizationV1Api(api_client).create_namespaced_role_binding(namespace, {
-        "metadata": {"name": "floorcast-operator"},
-        "roleRef": {"apiGroup": "rbac.authorization.k8s.io", "kind": "ClusterRole",
-                    "name": "floorcast-operator"},
-        "subjects": [{"kind": "ServiceAccount", "name": creds.name, "namespace": namespace}],
-    })  # fmt: skip
+    bind_cluster_role(api_client, namespace, creds.name)
     e = Env(api_client, namespace, creds.kubeconfig, tmp_path, [])
     try:
         yield e

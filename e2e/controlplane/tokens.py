@@ -104,3 +104,17 @@ def service_account_credentials(
         user=f"{namespace}-{name}",
     )
     return ServiceAccountCredentials(namespace, name, token, path)
+
+
+def bind_cluster_role(
+    api: k8s.ApiClient, namespace: str, service_account: str, role: str = "floorcast-operator"
+) -> None:
+    """Grant ``role`` (a ClusterRole) to a ServiceAccount in ``namespace`` only, with a
+    RoleBinding of the same name: how the operator is run with exactly its RBAC."""
+    k8s.RbacAuthorizationV1Api(api).create_namespaced_role_binding(namespace, {
+        "metadata": {"name": role},
+        "roleRef": {"apiGroup": "rbac.authorization.k8s.io", "kind": "ClusterRole",
+                    "name": role},
+        "subjects": [{"kind": "ServiceAccount", "name": service_account,
+                      "namespace": namespace}],
+    })  # fmt: skip

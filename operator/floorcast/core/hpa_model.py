@@ -20,6 +20,13 @@ Simplifications (each also marked where it applies):
   scale-down removes not-ready pods first (the ReplicaSet controller's deletion
   order, from memory).
 
+Measured against the real controller (``e2e/fidelity.py`` on the e2e harness's living
+cluster: real kube-controller-manager, metrics-server, Pods Ready 40 s after start):
+on a 20-minute compressed day the model's replica-minutes were 1.00× the real ones
+and its saturation minutes 1.8 against 2.5 (within the 2-minute target; the model
+starts a Pod's clock at once, the cluster a second or two later); on the CI
+scenarios' day both agree within 1 %. Figures and method: docs/hpa-model.md.
+
 Everything is vectorized over a batch of scenarios (rows): only time is a loop.
 """
 

@@ -98,7 +98,7 @@ def test_minimal_policy_gets_every_design_default() -> None:
     )
     assert spec.capacity == Capacity(per_replica=0.5, from_hpa=False)
     assert spec.lead_time == timedelta(minutes=5)
-    assert spec.hold_time == timedelta(minutes=15)
+    assert spec.hold_time == timedelta(0)  # docs/backtest.md, holdTime: no double holding
     assert spec.headroom == pytest.approx(0.1)
     assert spec.use_upper_bound is True
     assert spec.min_replicas is None
@@ -254,7 +254,7 @@ def test_spec_defaults_match_design() -> None:
     assert spec_defaults() == {
         "forecast": {"maxAge": "6h"},
         "leadTime": "5m",
-        "holdTime": "15m",
+        "holdTime": "0s",
         "headroom": 0.1,
         "useUpperBound": True,
         "mode": "DryRun",

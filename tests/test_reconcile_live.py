@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from kubernetes import client as k8s
-from test_reconcile import NOW, STEP, forecast, hpa, observed, policy
+from test_reconcile import NOW, forecast, hpa, observed, policy
 
 from floorcast.controller import live
 from floorcast.controller.decide import ForecastState, decide
@@ -127,8 +127,8 @@ def test_a_steady_factor_does_not_rewrite_the_status():
 def test_cpu_current_reads_the_hpa_status():
     def metric(name: str, util: int | None) -> k8s.V2MetricStatus:
         cur = k8s.V2MetricValueStatus(average_utilization=util)
-        return k8s.V2MetricStatus(type="Resource",
-                                  resource=k8s.V2ResourceMetricStatus(name=name, current=cur))  # fmt: skip
+        res = k8s.V2ResourceMetricStatus(name=name, current=cur)
+        return k8s.V2MetricStatus(type="Resource", resource=res)
 
     def h(*ms: k8s.V2MetricStatus) -> k8s.V2HorizontalPodAutoscaler:
         spec = k8s.V2HorizontalPodAutoscalerSpec(
@@ -145,4 +145,3 @@ def test_cpu_current_reads_the_hpa_status():
 def test_memory_survives_only_in_the_decision():
     d = run(60, 3)
     assert isinstance(d.live_memory, LiveMemory) and d.live_memory.at == NOW
-    assert STEP == pd.Timedelta("5m")

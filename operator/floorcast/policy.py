@@ -57,7 +57,10 @@ MODES: tuple[Mode, ...] = ("DryRun", "Enforce")
 
 DEFAULT_MAX_AGE = timedelta(hours=6)
 DEFAULT_LEAD_TIME = timedelta(minutes=5)
-DEFAULT_HOLD_TIME = timedelta(minutes=15)
+#: 0: the HPA's own scale-down stabilization (5 minutes by default) already holds the
+#: pods after a peak; on the back-test's frontier a hold on the floor on top of it
+#: cost replica-hours for no less saturation (docs/backtest.md, "holdTime").
+DEFAULT_HOLD_TIME = timedelta(0)
 DEFAULT_HEADROOM = 0.1
 DEFAULT_USE_UPPER_BOUND = True
 DEFAULT_MODE: Mode = "DryRun"

@@ -71,7 +71,8 @@ EDGE_DURATIONS = [
 DURATIONS = st.one_of(st.sampled_from(EDGE_DURATIONS),
                       st.from_regex(DURATION_PATTERN, fullmatch=True))  # fmt: skip
 NUMBERS = st.one_of(
-    st.sampled_from([0, 0.0, 5e-324, 1e-300, 10, 10.000000000000002, 1000, 1000.0000000000001,
+    st.sampled_from([0, 0.0, 5e-324, 1e-300, 1, 0.9999999999999999, 1.0000000000000002, 10,
+                     10.000000000000002, 1000, 1000.0000000000001,
                      1e12, 1.0000000000000002e12, 1e300, -1]),
     st.floats(allow_nan=False, allow_infinity=False),
     st.integers(min_value=-(2**53), max_value=2**53),
@@ -89,7 +90,8 @@ def specs(draw: Any) -> dict[str, Any]:
     }
     which = draw(st.sets(st.sampled_from(["leadTime", "holdTime", "maxAge", "headroom",
                                           "perReplica", "factor", "minReplicas",
-                                          "maxReplicas"]), min_size=1, max_size=3))  # fmt: skip
+                                          "maxReplicas", "halfLife", "correctionMin",
+                                          "correctionMax"]), min_size=1, max_size=3))  # fmt: skip
     for f in which:
         if f in ("leadTime", "holdTime"):
             spec[f] = draw(DURATIONS)
@@ -103,6 +105,12 @@ def specs(draw: Any) -> dict[str, Any]:
             spec["plannedEvents"] = [{"name": "sale", "start": "2026-12-01T10:00:00Z",
                                       "end": "2026-12-01T11:00:00Z",
                                       "factor": draw(NUMBERS)}]  # fmt: skip
+        elif f == "halfLife":
+            spec.setdefault("liveCorrection", {})["halfLife"] = draw(DURATIONS)
+        elif f == "correctionMin":
+            spec.setdefault("liveCorrection", {})["min"] = draw(NUMBERS)
+        elif f == "correctionMax":
+            spec.setdefault("liveCorrection", {})["max"] = draw(NUMBERS)
         else:
             spec[f] = draw(REPLICAS)
     return spec
@@ -140,11 +148,13 @@ def test_what_the_api_server_accepts_policy_py_accepts(api_client, operator_clus
 
     # Every edge value in every duration field, deterministically, before the random ones.
     for value in EDGE_DURATIONS:
-        for field in ("leadTime", "holdTime", "maxAge"):
+        for field in ("leadTime", "holdTime", "maxAge", "halfLife"):
             base: dict[str, Any] = {"targetRef": {"name": "web"}, "capacity": {"perReplica": 1},
                                     "forecast": {"configMapRef": {"name": "fc", "key": "k"}}}
             if field == "maxAge":
                 base["forecast"]["maxAge"] = value
+            elif field == "halfLife":
+                base["liveCorrection"] = {"halfLife": value}
             else:
                 base[field] = value
             check.hypothesis.inner_test(base)  # type: ignore[attr-defined]

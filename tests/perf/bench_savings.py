@@ -1,7 +1,8 @@
 """Benchmark: is a floor clearly cheaper than simply lowering the HPA's target?
 
 For each open dataset, ``replay.run`` replays the HPA alone (target 70 %), floorcast
-with policy defaults (and a lean variant), the perfect-foresight oracle and the HPA
+with policy defaults (and a lean variant, whole-step planning and the live correction
+on), the perfect-foresight oracle and the HPA
 alone at a ladder of lower targets, then prints saturation minutes (demand above the
 ready pods' capacity at 100 %) and floorcast's replica-hour saving against the HPA
 alone tuned to saturate as little (``core.frontier``).
@@ -45,7 +46,7 @@ import pandas as pd
 
 from floorcast import replay
 from floorcast.core.series import Series
-from floorcast.policy import Capacity, ConfigMapRef, ForecastSource, PolicySpec
+from floorcast.policy import Capacity, ConfigMapRef, ForecastSource, LiveCorrection, PolicySpec
 
 SAMPLE = pd.Timedelta(minutes=5)  # service time one sample is replayed as (--sample)
 START = pd.Timestamp("2026-01-05T00:00:00Z")  # a Monday, like both datasets' first day
@@ -89,8 +90,10 @@ def as_service_load(d: Dataset, sample: pd.Timedelta) -> Series:
     return Series(start=START, step=sample, values=np.maximum(v, 0.0), unit="cores")
 
 
-def spec(*, headroom: float = 0.1, upper: bool = True, hold: str = "15m") -> PolicySpec:
-    """Policy defaults (leadTime 5m, holdTime 15m, headroom 0.1, upper band)."""
+def spec(*, headroom: float = 0.1, upper: bool = True, hold: str = "0s",
+         live: bool = False) -> PolicySpec:  # fmt: skip
+    """Policy defaults (leadTime 5m, holdTime 0s, headroom 0.1, upper band; ``live``:
+    the live correction on with its default halfLife, min and max)."""
     return PolicySpec(
         target_name="svc",
         forecast=ForecastSource(config_map_ref=ConfigMapRef("svc-forecast", "f.json"), url=None),
@@ -99,6 +102,7 @@ def spec(*, headroom: float = 0.1, upper: bool = True, hold: str = "15m") -> Pol
         hold_time=pd.Timedelta(hold).to_pytimedelta(),
         headroom=headroom,
         use_upper_bound=upper,
+        live_correction=LiveCorrection(enabled=live),
     )
 
 
@@ -167,7 +171,7 @@ def main() -> int:
                 pedestrians("19 Shortland Street", "ped-shortland")]  # fmt: skip
     ok = True
     holds = [replay.Knobs(timedelta(minutes=5), 0.1, timedelta(minutes=m), TARGET)
-             for m in (0, 5)]  # fmt: skip
+             for m in (5, 15)]  # fmt: skip
     for d in datasets:
         h = as_service_load(d, sample)
         t0 = time.perf_counter()
@@ -185,6 +189,8 @@ def main() -> int:
                                                   setup(d, method, sample)))  # fmt: skip
         before = replay.run(spec(), h, setup(d, method, sample, plan_step=sample))
         report("planned per step", before)
+        corrected = replay.run(spec(live=True), h, setup(d, method, sample))
+        report("live correction", corrected)
         if a.grid:
             grid(d, h, method, sample)
         print(f"  time {time.perf_counter() - t0:.1f} s")

@@ -5,6 +5,10 @@ replayed faster: its 5-minute points are re-stamped ``SPEED`` times closer toget
 shifted so that the service's biggest peak lands ``peak_at`` into the live phase.
 Lead and hold times shrink by the same factor, so the floor visibly rises ahead of the
 peak within a few minutes, and the real HPA controller scales the Deployment after it.
+
+On the local control plane the cluster is alive (``demo_load.py``): Pods take
+``READY_DELAY`` to become Ready, each service's demand follows its replayed forecast
+as real CPU usage that metrics-server reports, and storefront has an HPA-alone twin.
 """
 
 from __future__ import annotations
@@ -24,9 +28,9 @@ import pandas as pd
 import yaml
 from rich.console import Console
 from rich.live import Live
-from rich.table import Table
 
 from floorcast import scenario
+from floorcast.cli import demo_load
 from floorcast.core.series import Series
 from floorcast.core.series_text import to_json_text
 from floorcast.durations import parse_duration
@@ -99,35 +103,29 @@ def _workload(name: str) -> tuple[dict[str, Any], dict[str, Any]]:
     return dep, hpa
 
 
-def _table(rows: list[dict[str, Any]], left: float) -> Table:
-    t = Table(
-        "service", "mode", "baseline", "floor", "proposed (DryRun)", "HPA minReplicas",
-        "Deployment replicas", title=f"shop — live ({left:.0f}s left, Ctrl-C stops)",
-    )  # fmt: skip
-    keys = ("service", "mode", "baseline", "floor", "proposed", "minReplicas", "replicas")
-    for r in rows:
-        t.add_row(*(str(r.get(k, "–")) for k in keys))
-    return t
-
-
-def _sample(api: Any, service: str, mode: str) -> dict[str, Any]:
+def _sample(api: Any, service: str, mode: str, driver: Any | None = None) -> dict[str, Any]:
     from kubernetes import client as k8s
 
-    pol = k8s.CustomObjectsApi(api).get_namespaced_custom_object(
-        GROUP, VERSION, NAMESPACE, PLURAL, service
-    )
-    st = pol.get("status") or {}
+    st: dict[str, Any] = {}
+    if service != demo_load.TWIN:
+        pol = k8s.CustomObjectsApi(api).get_namespaced_custom_object(
+            GROUP, VERSION, NAMESPACE, PLURAL, service
+        )
+        st = pol.get("status") or {}
     hpa = k8s.AutoscalingV2Api(api).read_namespaced_horizontal_pod_autoscaler(service, NAMESPACE)
     dep = k8s.AppsV1Api(api).read_namespaced_deployment(service, NAMESPACE)
-    return {
+    row = {
         "t": time.time(), "service": service, "mode": mode,
         "baseline": st.get("baseline", "–"), "floor": st.get("floor", "–"),
         "proposed": st.get("proposedFloor", "–"), "minReplicas": hpa.spec.min_replicas,
         "replicas": dep.spec.replicas,
     }  # fmt: skip
+    if driver is not None:
+        row.update(demo_load.living_sample(api, NAMESPACE, service, driver))
+    return row
 
 
-def _install(api: Any, console: Console, result: LiveResult) -> None:
+def _install(api: Any, console: Console, result: LiveResult, *, twin: bool = False) -> None:
     """CRD and the operator's ClusterRole from the checkout, the shop's objects.
 
     The namespace must not exist yet: the demo deletes it when it is done, and on a
@@ -165,26 +163,23 @@ def _install(api: Any, console: Console, result: LiveResult) -> None:
             "use a throw-away cluster"
         ) from None
     result.created_namespace = True
-    for svc in scenario.SERVICES:
-        dep, hpa = _workload(svc.name)
+    names = [s.name for s in scenario.SERVICES] + ([demo_load.TWIN] if twin else [])
+    for name in names:
+        dep, hpa = _workload(name)
         k8s.AppsV1Api(api).create_namespaced_deployment(NAMESPACE, dep)
         k8s.AutoscalingV2Api(api).create_namespaced_horizontal_pod_autoscaler(NAMESPACE, hpa)
-    _step(console, f"namespace {NAMESPACE}: 3 Deployments and HPAs (minReplicas {BASELINE})", t0)
+    extra = f" (incl. {demo_load.TWIN}, storefront's twin without a policy)" if twin else ""
+    _step(console, f"namespace {NAMESPACE}: {len(names)} Deployments and HPAs{extra}, "
+          f"minReplicas {BASELINE}", t0)  # fmt: skip
 
 
 def _operator_kubeconfig(cluster: Any, work: Path, api: Any) -> Path:
     """A ServiceAccount token kubeconfig bound to the operator's ClusterRole."""
-    from kubernetes import client as k8s
 
-    from e2e.controlplane.tokens import service_account_credentials
+    from e2e.controlplane.tokens import bind_cluster_role, service_account_credentials
 
     creds = service_account_credentials(cluster, NAMESPACE, "floorcast-operator", work)
-    k8s.RbacAuthorizationV1Api(api).create_namespaced_role_binding(NAMESPACE, {
-        "metadata": {"name": "floorcast-operator"},
-        "roleRef": {"apiGroup": "rbac.authorization.k8s.io", "kind": "ClusterRole",
-                    "name": "floorcast-operator"},
-        "subjects": [{"kind": "ServiceAccount", "name": creds.name, "namespace": NAMESPACE}],
-    })  # fmt: skip
+    bind_cluster_role(api, NAMESPACE, creds.name)
     return creds.kubeconfig
 
 
@@ -198,21 +193,28 @@ def _start_cluster(console: Console) -> Any:
     if str(root) not in sys.path:
         sys.path.insert(0, str(root))
     from e2e.controlplane import build
+    from e2e.controlplane.living import LivingSettings
     from e2e.controlplane.runner import ControlPlane
 
     t0 = time.monotonic()
-    if not all(p.exists() for p in build.binaries().all()):
+    extra = (build.kwok_path(), build.metrics_server_path())
+    if not all(p.exists() for p in (*build.binaries().all(), *extra)):
         console.print(
-            "[yellow]building etcd, kube-apiserver, kube-controller-manager and kubectl from "
-            f"Go modules into {build.bin_dir()}: a one-time 20-40 minutes on 2 cores[/yellow]"
+            "[yellow]building etcd, the Kubernetes control plane, kwok and metrics-server "
+            f"from Go modules into {build.cache_root()}: a one-time 20-40 minutes on 2 "
+            "cores[/yellow]"
         )
         build.ensure_built()
+        build.ensure_kwok()
+        build.ensure_metrics_server()
         _step(console, "built the control plane", t0)
     else:
-        _step(console, f"control plane binaries cached in {build.bin_dir()}", t0)
+        _step(console, f"control plane binaries cached in {build.cache_root()}", t0)
     t0 = time.monotonic()
-    with console.status("starting etcd, kube-apiserver and kube-controller-manager"):
-        cp = ControlPlane().start()
+    living = LivingSettings(pod_ready_delay=demo_load.READY_DELAY)
+    with console.status("starting etcd, kube-apiserver, kube-controller-manager, "
+                        "kube-scheduler, kwok Nodes and metrics-server"):  # fmt: skip
+        cp = ControlPlane(living=living, hpa_sync_period=demo_load.HPA_SYNC).start()
     _step(console, f"control plane up at {cp.server}", t0)
     return cp
 
@@ -239,6 +241,7 @@ def run_live(
     operator: subprocess.Popen | None = None
     procs: list[subprocess.Popen] = []
     api: Any = None
+    drivers: list[Any] = []
     work = Path(tempfile.mkdtemp(prefix="floorcast-demo-"))
     try:
         if kubeconfig is None:
@@ -247,15 +250,16 @@ def run_live(
         else:
             admin = kubeconfig
         api = k8s_config.new_client_from_config(str(admin))
-        _install(api, console, result)
+        _install(api, console, result, twin=cluster is not None)
         t0 = time.monotonic()
         with console.status("forecasting each service from its two weeks of history"):
             forecasts = forecast_shop()
         now = pd.Timestamp.now(tz="UTC")
         peak_at = pd.Timedelta(seconds=round(live_for * 0.55))
         core = k8s.CoreV1Api(api)
+        fast: dict[str, Series] = {}
         for svc in scenario.SERVICES:
-            fc = replay_fast(forecasts[svc.name], now=now, peak_at=peak_at)
+            fc = fast[svc.name] = replay_fast(forecasts[svc.name], now=now, peak_at=peak_at)
             (out / f"{svc.name}-live-forecast.json").write_text(to_json_text(fc))
             core.create_namespaced_config_map(NAMESPACE, {
                 "metadata": {"name": f"{svc.name}-forecast",
@@ -271,6 +275,12 @@ def run_live(
             modes[svc.name] = body["spec"]["mode"]
             custom.create_namespaced_custom_object(GROUP, VERSION, NAMESPACE, PLURAL, body)
         listed = ", ".join(f"{name} {mode}" for name, mode in modes.items())
+        if cluster is not None:
+            drivers = demo_load.start_drivers(api, NAMESPACE, fast, now.timestamp())
+            modes[demo_load.TWIN] = "HPA alone"
+            console.print(f"[green]✓[/green] load running: each service's demand follows its "
+                          f"forecast as CPU; Pods are Ready {demo_load.READY_DELAY:.0f}s after "
+                          "they start")  # fmt: skip
         console.print(f"[green]✓[/green] policies applied: {listed} (leadTime "
                       f"{LIVE_LEAD}, holdTime {LIVE_HOLD})")  # fmt: skip
         op_cfg = _operator_kubeconfig(cluster, work, api) if cluster is not None else admin
@@ -292,13 +302,14 @@ def run_live(
         procs.append(backtest)
         end = time.monotonic() + live_for
         rows: list[dict[str, Any]] = []
-        with Live(_table(rows, live_for), console=console, refresh_per_second=2) as live:
+        with Live(demo_load.table(rows, live_for), console=console, refresh_per_second=2) as live:
             while (left := end - time.monotonic()) > 0:
                 if operator.poll() is not None:
                     raise RuntimeError(f"the operator exited; see {out / 'operator.log'}")
-                rows = [_sample(api, s.name, modes[s.name]) for s in scenario.SERVICES]
+                by = {d.selector.removeprefix("app="): d for d in drivers}
+                rows = [_sample(api, n, modes[n], by.get(n)) for n in modes]
                 result.samples.extend(rows)
-                live.update(_table(rows, left))
+                live.update(demo_load.table(rows, left))
                 time.sleep(2)
         console.print()
         (out / "live-samples.json").write_text(json.dumps(result.samples, indent=1))
@@ -312,6 +323,8 @@ def run_live(
     except KeyboardInterrupt:
         console.print("[yellow]interrupted: tearing down[/yellow]")
     finally:
+        for d in drivers:
+            d.stop()
         _teardown(console, api, procs, cluster, result.created_namespace)
     return result
 

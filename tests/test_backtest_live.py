@@ -108,3 +108,16 @@ def test_an_unknown_keep_rule_is_refused():
     with pytest.raises(ValueError, match="keep rule"):
         replay.run(_spec(), _history(), _setup(correction_keep="nothing"))
     assert correction.KEEP in correction.KEEP_RULES
+
+
+def test_sweep_rows_are_corrected_each_on_its_own():
+    """With a sweep every floorcast row carries its own factor, and the policy's own row
+    is the one a replay without the sweep gives (the rows do not mix)."""
+    h = _history(1.6)
+    alone = replay.run(_spec(), h, _setup())
+    knobs = [(timedelta(minutes=2), 0.0), (timedelta(minutes=5), 0.2)]
+    swept = replay.run(_spec(), h, _setup(), sweep=knobs)
+    assert swept.live_factor.shape == (3, len(swept.demand))
+    np.testing.assert_array_equal(swept.live_factor[0], alone.live_factor[0])
+    row = swept.row("floorcast")
+    np.testing.assert_array_equal(swept.minimum[row], alone.minimum[alone.row("floorcast")])

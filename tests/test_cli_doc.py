@@ -10,6 +10,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+import yaml
 from cli_run import run
 
 from floorcast import scenario
@@ -85,7 +86,12 @@ def test_plan_json_keys_are_the_documented_ones(shop, capsys):
 
 
 def test_backtest_json_has_every_documented_key(shop, capsys):
-    code, out, err = run(["backtest", "-f", POLICY, "--history", str(shop / "storefront.csv"),
+    # The example policy with the live correction on, so its key is present too.
+    body = yaml.safe_load(Path(POLICY).read_text())
+    body["spec"]["liveCorrection"] = {"enabled": True}
+    policy = shop / "live-policy.yaml"
+    policy.write_text(yaml.safe_dump(body))
+    code, out, err = run(["backtest", "-f", str(policy), "--history", str(shop / "storefront.csv"),
                           "--baseline", "2", "--forecast-method", "seasonal-naive", "--json",
                           "--sweep", "leadTime=5m", "headroom=0,0.1"], capsys)  # fmt: skip
     assert code == 0, err
@@ -99,6 +105,9 @@ def test_backtest_json_has_every_documented_key(shop, capsys):
     assert not missing, f"docs/cli.md documents keys backtest --json lacks: {missing}"
     for row in doc["sweep"]:  # the sweep rows carry the scenario scores too
         assert keys(scores) | {"leadTime", "headroom"} <= set(row)
+    live = doc["live_correction"]
+    assert set(live) == {"active_share", "factor_p10", "factor_median", "factor_p90"}
+    assert 0 < live["active_share"] <= 1 and live["factor_p10"] <= live["factor_p90"]
 
 
 def test_forecast_evaluate_json_keys_are_the_documented_ones(shop, capsys):

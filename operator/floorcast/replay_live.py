@@ -144,7 +144,7 @@ def correct(
     obs = observations(demand, scaled, sync=sync, settle=pd.Timedelta(spec.lead_time))
     every = max(round(pd.Timedelta(interval) / sync), 1)
     ticks = np.arange(0, n, every)
-    per = np.array([per_replica * k.target / base_target for k in grid])[:, None]
+    per = np.array([per_replica * k.target / base_target for k in grid])
     f = correction.track(obs[:, ticks], np.broadcast_to(fc_now[:, ticks], obs[:, ticks].shape),
                          every * sync.total_seconds(),
                          pd.Timedelta(lc.half_life).total_seconds(),

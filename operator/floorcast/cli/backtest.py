@@ -88,6 +88,14 @@ def parse_ladder(text: str) -> tuple[float, ...]:
     return tuple(p / 100.0 for p in pcts)
 
 
+def live_summary(factor: np.ndarray) -> dict[str, Any]:
+    """The floorcast row's live-correction factor over the replay (docs/cli.md)."""
+    on = factor[~np.isnan(factor)]
+    pct = (lambda q: float(np.percentile(on, q))) if len(on) else (lambda q: None)
+    return {"active_share": float(len(on) / max(len(factor), 1)), "factor_p10": pct(10),
+            "factor_median": pct(50), "factor_p90": pct(90)}  # fmt: skip
+
+
 def _summary(r: replay.Result) -> dict[str, Any]:
     doc: dict[str, Any] = {
         "start": iso(r.start),
@@ -102,6 +110,8 @@ def _summary(r: replay.Result) -> dict[str, Any]:
         doc[name] = r.scores[r.row(name)]
     doc["floorcast"] = {**doc["floorcast"], "forecast_error": r.forecast_error}
     doc["plan_step_seconds"] = r.plan_step.total_seconds()
+    if r.live_factor is not None:
+        doc["live_correction"] = live_summary(r.live_factor[0])
     doc.update(tuned_summary(r))
     if r.sweep:
         doc["sweep"] = [

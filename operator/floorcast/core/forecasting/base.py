@@ -24,6 +24,11 @@ class ForecastError(InputError):
     """History that cannot give a trustworthy forecast (too short, all gaps, ...)."""
 
 
+class HistoryTooShort(ForecastError):
+    """Too few observations for a method: the same for every series of a batch (they
+    share one length), so a caller need not look for the rows to blame."""
+
+
 class Method(Protocol):
     def __call__(self, y: np.ndarray, *, season: int, horizon: int) -> np.ndarray: ...
 
@@ -47,6 +52,6 @@ def as_batch(y: np.ndarray) -> np.ndarray:
 def require_length(y: np.ndarray, needed: int, what: str) -> None:
     """A clear error instead of a silently bad forecast from too little history."""
     if y.shape[1] < needed:
-        raise ForecastError(
+        raise HistoryTooShort(
             f"{what} needs at least {needed} observations, the history has {y.shape[1]}"
         )

@@ -27,20 +27,21 @@ PARTS = 3
 MIN_PARTS = 2
 
 
-def _top(key: np.ndarray, parts: int) -> np.ndarray:
-    """(..., M) key to minimise -> (..., M) weights: 1/p on the best p finite ones."""
+def _top(key: np.ndarray, parts: int, least: int = MIN_PARTS) -> np.ndarray:
+    """(..., M) key to minimise -> (..., M) weights: 1/p on the best p finite ones
+    (none where fewer than ``least`` are finite)."""
     order = np.argsort(key, axis=-1, kind="stable")
     rank = np.argsort(order, axis=-1, kind="stable")
     finite = np.isfinite(key)
     p = np.minimum(finite.sum(axis=-1, keepdims=True), parts)
     pick = (rank < p) & finite
     with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(pick & (p >= MIN_PARTS), 1.0 / np.maximum(p, 1), 0.0)
+        return np.where(pick & (p >= least), 1.0 / np.maximum(p, 1), 0.0)
 
 
-def weights(key: np.ndarray) -> np.ndarray:
-    """(N, M) member weights for the final forecast from the selection key (N, M)."""
-    return _top(np.where(np.isnan(key), np.inf, key), PARTS)
+def weights(key: np.ndarray, parts: int = PARTS, least: int = MIN_PARTS) -> np.ndarray:
+    """(N, M) member weights for the final forecast from the point-error key (N, M)."""
+    return _top(np.where(np.isnan(key), np.inf, key), parts, least)
 
 
 def backtest(backtests: dict[str, Backtest], names: Sequence[str]) -> Backtest:

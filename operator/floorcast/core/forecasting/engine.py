@@ -11,7 +11,6 @@ clipped at 0 here. There is no clock: ``generated`` is a parameter.
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -21,9 +20,9 @@ import numpy as np
 import pandas as pd
 
 from floorcast.core import forecasting
-from floorcast.core.forecasting import bands, combine, evaluation, preprocess
+from floorcast.core.forecasting import bands, combine, evaluation, finalize, preprocess
 from floorcast.core.forecasting.base import ForecastError
-from floorcast.core.forecasting.select import Selection, call_rows, select, unevaluated
+from floorcast.core.forecasting.select import select, unevaluated
 from floorcast.core.series import Series
 from floorcast.durations import format_duration, parse_duration
 from floorcast.errors import InputError
@@ -38,10 +37,12 @@ class Options:
     """Tuning knobs with defaults that suit 5-minute load over two weeks."""
 
     #: Rolling origins: the newest leaves one evaluation horizon to score, the others
-    #: step back a day each, so the scores cover a week of different days (each
-    #: weekday once: with three, a method that got the last three weekdays right won
-    #: even where it fails every weekend, and band quantiles rested on three days).
-    origins: int = 7
+    #: step back a day each, as many as the history allows up to two weeks of days
+    #: (each weekday at least once with a week's training before it). With three, a
+    #: method that got the last three weekdays right won even where it failed every
+    #: weekend, and bands rested on three days; on bench_accuracy.py's Taylor data
+    #: seven origins left auto 8 % behind statsmodels' Holt-Winters, fourteen tied.
+    origins: int = 14
     origin_spacing: pd.Timedelta = _DAY
     #: Score at most a day ahead: longer horizons would leave too little training data
     #: before the origins; bands beyond it keep the last evaluated width.
@@ -294,9 +295,7 @@ def _forecast_group(
     valid = ~prep.excluded
     h_eval = max(1, min(horizon, steps(opt.max_eval_horizon, step, "evaluation horizon")))
     spacing = max(1, steps(opt.origin_spacing, step, "origin spacing"))
-    at = evaluation.origins(
-        t_len, h_eval, count=opt.origins, spacing=spacing, min_train=max(2, season)
-    )
+    at = _origins(t_len, h_eval, season, spacing, opt.origins)
     if at.size:
         sel = select(
             prep.values,
@@ -310,11 +309,11 @@ def _forecast_group(
             combination=auto or combined,
         )
         if combined:
-            sel = _combination_first(sel)
+            sel = finalize.combination_first(sel)
     else:
         sel = unevaluated(names, n, prefer=FALLBACK_METHOD)
     names = sel.names
-    point, final, why = _final_forecasts(sel, prep.values, season=season, horizon=horizon)
+    point, final, why = finalize.final_forecasts(sel, prep.values, season=season, horizon=horizon)
     if (final < 0).any():
         detail = "; ".join(f"{k}: {v}" for k, v in why.items())
         raise ForecastError(
@@ -324,7 +323,7 @@ def _forecast_group(
     methods = [names[j] for j in final]
     lo, hi, banded = bands.from_backtests(
         sel.backtests, methods, horizon, quantiles, pool=opt.pool, start=t_len,
-        period=bands.phase_period(season),
+        period=bands.phase_period(season), calibration=sel.calibration,
     )  # fmt: skip
     if not banded.all():
         rest = np.flatnonzero(~banded)
@@ -338,7 +337,7 @@ def _forecast_group(
         meta.append(
             {
                 "method": methods[i],
-                **_members(sel, i, methods[i]),
+                **finalize.members(sel, i, methods[i]),
                 "selection": "fixed" if fixed else "auto" if picked else "fallback",
                 "season": int(season),
                 "season_duration": format_duration(step * season) if season else None,
@@ -362,69 +361,19 @@ def _forecast_group(
     return result, meta
 
 
-def _combination_first(sel: Selection) -> Selection:
-    """``--method combination``: the combination first for every series, then the
-    others in their ranked order (the fallbacks when it cannot be made)."""
-    if combine.COMBINATION not in sel.names:
-        return sel
-    c = sel.names.index(combine.COMBINATION)
-    rest = sel.order[sel.order != c].reshape(len(sel.order), -1)
-    order = np.concatenate([np.full((len(rest), 1), c), rest], axis=1)
-    evaluated = sel.evaluated & sel.backtests[combine.COMBINATION].ok
-    return dataclasses.replace(sel, order=order, evaluated=evaluated)
-
-
-def _members(sel: Selection, i: int, method: str) -> dict[str, Any]:
-    """The combination's members, for the metadata (nothing for other methods)."""
-    if method != combine.COMBINATION:
-        return {}
-    return {"combination": [sel.names[j] for j in np.flatnonzero(sel.parts[i] > 0)]}
-
-
-def _final_forecasts(
-    sel: Selection, y: np.ndarray, *, season: int, horizon: int
-) -> tuple[np.ndarray, np.ndarray, dict[str, str]]:
-    """Forecast with each row's best candidate; a row its choice rejects on the full
-    history tries the next best, so one odd series cannot sink the whole batch. Each
-    method runs once per group of rows that need it (a combination needs several);
-    returns (point (N, H), chosen index or -1, first failure per method)."""
-    n = len(y)
-    names = sel.names
-    cache = np.full((len(names), n, horizon), np.nan)
-    tried = np.zeros((len(names), n), dtype=bool)
-    why = dict(sel.failures)
-
-    def run(j: int, rows: np.ndarray) -> np.ndarray:
-        todo = rows[~tried[j, rows]]
-        if todo.size:
-            got, _, reason = call_rows(
-                forecasting.method(names[j]), y[todo], season=season, horizon=horizon
-            )
-            cache[j, todo], tried[j, todo] = got, True
-            if reason:
-                why.setdefault(names[j], reason)
-        return cache[j, rows]
-
-    final = np.full(n, -1)
-    point = np.zeros((n, horizon))
-    combo = names.index(combine.COMBINATION) if combine.COMBINATION in names else -1
-    for rank in range(len(names)):
-        left = final < 0
-        for j in np.unique(sel.order[left, rank]):
-            rows = np.flatnonzero(left & (sel.order[:, rank] == j))
-            if j == combo:
-                w = sel.parts[rows]
-                got = np.zeros((len(rows), horizon))
-                for m in np.flatnonzero((w > 0).any(axis=0)):
-                    use = w[:, m] > 0
-                    part = np.zeros((len(rows), horizon))
-                    part[use] = run(m, rows[use])
-                    got += w[:, m, None] * part
-            else:
-                got = run(j, rows)
-            ok = np.all(np.isfinite(got), axis=1)
-            point[rows[ok]], final[rows[ok]] = got[ok], j
-    return point, final, why
+def _origins(t_len: int, h_eval: int, season: int, spacing: int, count: int) -> np.ndarray:
+    """Rolling origins with two seasons of training before each (what the seasonal
+    methods need), when that still leaves a week of daily origins; else with one
+    season before each, as many as fit. An origin a method cannot train at
+    disqualifies the method for the series, so the first choice keeps the
+    multi-season methods and Holt-Winters in the running."""
+    least = min(count, 7)
+    at = evaluation.origins(
+        t_len, h_eval, count=count, spacing=spacing, min_train=max(2, 2 * season)
+    )
+    if at.size >= least:
+        return at
+    return evaluation.origins(t_len, h_eval, count=count, spacing=spacing, min_train=max(2, season))
 
 
 def forecast_series(

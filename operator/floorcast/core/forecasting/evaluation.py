@@ -181,6 +181,17 @@ class Backtest:
     scale: np.ndarray  # (N, K) MASE denominator from the data before each origin
     ok: np.ndarray  # (N,) bool: the method forecast this series at every origin
 
+    def rows(self, idx: np.ndarray) -> Backtest:
+        """The same backtest for a subset of the series."""
+        return Backtest(
+            origins=self.origins,
+            forecast=self.forecast[idx],
+            actual=self.actual[idx],
+            valid=self.valid[idx],
+            scale=self.scale[idx],
+            ok=self.ok[idx],
+        )
+
     @property
     def residuals(self) -> np.ndarray:
         """actual − forecast (0 where not valid; read ``valid``)."""

@@ -27,8 +27,13 @@ import numpy as np
 
 from floorcast.core import forecasting
 from floorcast.core.forecasting import bands, combine
-from floorcast.core.forecasting.base import ForecastError, MethodFn
+from floorcast.core.forecasting.base import ForecastError, HistoryTooShort, MethodFn
 from floorcast.core.forecasting.evaluation import Backtest, rolling_origin
+
+#: Candidates per series scored on held-out bands too (and ranked on the full key).
+SHORTLIST = 3
+#: Added to the point-error key of candidates off the shortlist: ranked behind it.
+_BEHIND = 1e12
 
 
 def call_rows(
@@ -49,6 +54,9 @@ def call_rows(
     def run(rows: np.ndarray) -> None:
         try:
             got = np.asarray(fn(y[rows], season=season, horizon=horizon), dtype=np.float64)
+        except HistoryTooShort as e:
+            reason.append(str(e))  # every row has this length: no halving
+            return
         except ForecastError as e:
             if len(rows) == 1:
                 reason.append(str(e))
@@ -85,6 +93,8 @@ class Selection:
     #: (N, M) weights of the candidates in each series' combination (rows sum to 1,
     #: or to 0 where there is none); empty when ``combination`` is not a candidate
     parts: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    #: name -> (2, N) held-out stretch of the lower and upper band edge
+    calibration: dict[str, np.ndarray] = field(default_factory=dict)
 
     @property
     def chosen(self) -> np.ndarray:
@@ -203,25 +213,41 @@ def select(
         raise ForecastError("no candidate methods to choose from")
     names = tuple(names)
     backtests, failures = evaluate(y, names, season=season, horizon=horizon, at=at, valid=valid)
-    period = bands.phase_period(season)
-
-    def scored(bt: Backtest) -> dict[str, np.ndarray]:
-        held = bands.holdout(bt, quantiles, pool=pool, period=period)
-        return {**bt.scores(), "coverage": held["coverage"], "wql": held["wql"]}
-
-    scores = {n: scored(backtests[n]) for n in names}
-    ok = np.stack([backtests[n].ok for n in names], axis=1)
-    key = np.where(ok, rank_key(scores, names, ok), np.inf)
-    parts = np.zeros((0, 0))
+    n = y.shape[0]
+    scores = {m: backtests[m].scores() for m in names}
+    ok = np.stack([backtests[m].ok for m in names], axis=1)
+    point_key = np.where(ok, rank_key(scores, names, ok), np.inf)
+    # Held-out bands cost a band fit per origin, so only each series' SHORTLIST best
+    # by point error (which are also its combination's members) get them and compete
+    # on the full key; the rest stay ranked behind them, by point error.
+    short = combine.weights(point_key, SHORTLIST, least=1) > 0
     if combination and len(names) >= combine.PARTS and len(at) >= 2:
-        parts = combine.weights(key)
+        parts = combine.weights(point_key)
         bt = combine.backtest(backtests, names)
         backtests[combine.COMBINATION] = bt
-        scores[combine.COMBINATION] = scored(bt)
+        scores[combine.COMBINATION] = bt.scores()
         names = (*names, combine.COMBINATION)
-        ok = np.concatenate([ok, bt.ok[:, None] & (parts > 0).any(axis=1, keepdims=True)], axis=1)
-        key = np.where(ok, rank_key(scores, names, ok), np.inf)
-        parts = np.concatenate([parts, np.zeros((len(parts), 1))], axis=1)
+        usable = bt.ok & (parts > 0).any(axis=1)
+        ok = np.concatenate([ok, usable[:, None]], axis=1)
+        short = np.concatenate([short, usable[:, None]], axis=1)
+        point_key = np.concatenate([point_key, np.where(usable, 0.0, np.inf)[:, None]], axis=1)
+        parts = np.concatenate([parts, np.zeros((n, 1))], axis=1)
+    else:
+        parts = np.zeros((0, 0))
+    period = bands.phase_period(season)
+    calibration: dict[str, np.ndarray] = {}
+    for j, m in enumerate(names):
+        rows = np.flatnonzero(short[:, j])
+        held = {k: np.full(n, np.nan) for k in ("coverage", "wql")}
+        calibration[m] = np.ones((2, n))
+        if rows.size:
+            got = bands.holdout(backtests[m].rows(rows), quantiles, pool=pool, period=period)
+            for k in held:
+                held[k][rows] = got[k]
+            calibration[m][:, rows] = got["calibration"]
+        scores[m].update(held)
+    full = rank_key(scores, names, short)
+    key = np.where(short, full, np.where(ok, _BEHIND + point_key, np.inf))
     # Stable sort: equal keys keep candidate order. An inf key (failed, or no valid
     # point to score) keeps the rows ranked but marks them not evaluated.
     order = np.argsort(key, axis=1, kind="stable")
@@ -234,4 +260,5 @@ def select(
         scores=scores,
         failures=failures,
         parts=parts,
+        calibration=calibration,
     )

@@ -26,7 +26,9 @@ from __future__ import annotations
 
 import argparse
 import fcntl
+import fnmatch
 import hashlib
+import json
 import os
 import re
 import resource
@@ -68,6 +70,8 @@ MMDEBSTRAP_OPTIONS = (
     "--dpkgopt=path-exclude=/usr/share/doc/*",
     "--dpkgopt=path-include=/usr/share/doc/*/copyright",
 )
+#: The digest of what the image was built from (see context_digest).
+CONTEXT_LABEL = "dev.floorcast.build-context"
 TOOLS = {"buildah": "buildah", "podman": "podman", "runc": "runc", "mmdebstrap": "mmdebstrap"}
 
 
@@ -208,26 +212,86 @@ def _pip_config() -> list[str]:
     return [*mounts, "--volume", f"{conf}:/etc/pip.conf:ro"]
 
 
-def build(base_image: str | None = None, tag: str | None = None) -> str:
-    """Build the Dockerfile (layer cache kept); return the image reference.
+def _context_files() -> list[Path]:
+    """The files .dockerignore lets into the build context.
 
-    The build stage is tagged too, so pruning dangling images afterwards drops
+    It is "ignore everything (``**``), re-include ``!`` paths, drop the patterns after"
+    (tests/test_packaging.py pins that shape), so that is all this reads.
+    """
+    rules = [ln.strip() for ln in (ROOT / ".dockerignore").read_text().splitlines()
+             if ln.strip() and not ln.startswith("#")]  # fmt: skip
+    keep = [r[1:].rstrip("/") for r in rules if r.startswith("!")]
+    drop = [r for r in rules if not r.startswith("!") and r != "**"]
+    drop += [r.replace("**/", "") for r in drop if "**/" in r]  # `**` may match no folder
+
+    def dropped(rel: str) -> bool:
+        parts = rel.split("/")
+        prefixes = ("/".join(parts[: i + 1]) for i in range(len(parts)))
+        return any(fnmatch.fnmatchcase(pre, pat) for pre in prefixes for pat in drop)
+
+    files: list[Path] = []
+    for name in keep:
+        top = ROOT / name
+        for path in sorted(top.rglob("*")) if top.is_dir() else [top]:
+            if path.is_file() and not dropped(path.relative_to(ROOT).as_posix()):
+                files.append(path)
+    return files
+
+
+def context_digest(base: str) -> str:
+    """What the image is built from: Dockerfile, .dockerignore, context files, base ID."""
+    h = hashlib.sha256()
+    for path in [ROOT / "Dockerfile", ROOT / ".dockerignore", *_context_files()]:
+        h.update(path.relative_to(ROOT).as_posix().encode() + b"\0")
+        h.update(hashlib.sha256(path.read_bytes()).digest())
+    base_id = _run(["podman", *_storage_flags(), "image", "inspect", "--format", "{{.Id}}",
+                    base], check=False).stdout.strip()  # fmt: skip
+    h.update((base_id or base).encode())
+    return h.hexdigest()
+
+
+def build(base_image: str | None = None, tag: str | None = None, *,
+          rebuild: bool = False) -> str:  # fmt: skip
+    """Build the Dockerfile; return the image reference.
+
+    An image already tagged with the same context digest (label CONTEXT_LABEL) is
+    what a build would produce, so it is reused unless ``rebuild`` (or
+    FLOORCAST_IMAGE_REBUILD=1). Otherwise buildah's layer cache still applies; the
+    build stage is tagged too, so pruning dangling images afterwards drops
     superseded builds but keeps the current one's cache.
     """
     ensure_tools()
     tag = tag or f"localhost/floorcast:{project_version()}"
+    rebuild = rebuild or os.environ.get("FLOORCAST_IMAGE_REBUILD") == "1"
     with _locked():
         base = base_image or ensure_base()
+        digest = context_digest(base)
+        if not rebuild and _image_exists(tag) and image_label(tag, CONTEXT_LABEL) == digest:
+            _log(f"{tag} is up to date (context {digest[:12]}); FLOORCAST_IMAGE_REBUILD=1 rebuilds")
+            return tag
         common = ["buildah", *_storage_flags(), "bud", "--isolation", "chroot", "--layers",
                   "--force-rm", "--build-arg", f"BASE_IMAGE={base}", *_pip_config(),
                   "-f", str(ROOT / "Dockerfile")]  # fmt: skip
+        if rebuild:
+            common.append("--no-cache")
         started = time.monotonic()
-        _log(f"buildah bud --build-arg BASE_IMAGE={base} -t {tag}")
+        _log(f"buildah bud --build-arg BASE_IMAGE={base} -t {tag} (context {digest[:12]})")
         _run([*common, "--target", "build", "-t", "localhost/floorcast-build:cache", str(ROOT)])
-        _run([*common, "-t", tag, str(ROOT)])
+        _run([*common, "--label", f"{CONTEXT_LABEL}={digest}", "-t", tag, str(ROOT)])
         _log(f"  built in {time.monotonic() - started:.0f} s")
         _run(["podman", *_storage_flags(), "image", "prune", "--force"], check=False)
     return tag
+
+
+def created_unix(ref: str) -> int:
+    out = _run(["podman", *_storage_flags(), "image", "inspect", "--format", "{{.Created.Unix}}",
+                ref])  # fmt: skip
+    return int(out.stdout.strip())
+
+
+def image_label(ref: str, label: str) -> str | None:
+    labels = json.loads(image_config(ref, "Labels") or "null") or {}
+    return labels.get(label)
 
 
 def image_size(ref: str) -> int:
@@ -279,11 +343,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m e2e.image", description=__doc__.split("\n")[0])
     parser.add_argument("--base-image", help="use this base instead of the Debian-built one")
     parser.add_argument("--tag", help="image reference (default localhost/floorcast:<version>)")
+    parser.add_argument("--rebuild", action="store_true", help="build even if up to date")
     parser.add_argument("command", choices=("build", "run"))
     parser.add_argument("args", nargs="*", help="for run: floorcast's arguments")
     ns = parser.parse_args(argv)
     try:
-        ref = build(ns.base_image, ns.tag)
+        ref = build(ns.base_image, ns.tag, rebuild=ns.rebuild)
     except ToolsMissing as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2

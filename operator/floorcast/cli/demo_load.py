@@ -11,6 +11,7 @@ Ready before the peak while the HPA alone saturates.
 
 from __future__ import annotations
 
+import time
 from typing import Any
 
 import numpy as np
@@ -18,7 +19,7 @@ from rich.table import Table
 
 from floorcast import scenario
 from floorcast.core.series import Series
-from floorcast.scenario import TARGET
+from floorcast.scenario import BASELINE, TARGET
 
 TWIN, TWIN_OF = "storefront-alone", "storefront"
 #: Seconds from a demo Pod's start until it is Ready (time-compressed start-up).
@@ -41,11 +42,24 @@ def cores_trace(fc: Series, service: str, origin: float) -> Any:
 
 def start_drivers(api: Any, namespace: str, forecasts: dict[str, Series],
                   origin: float) -> list[Any]:  # fmt: skip
-    """One load driver per Deployment (the twin shares storefront's demand)."""
-    from e2e.load import LoadDriver
+    """One load driver per Deployment (the twin shares storefront's demand), started
+    once every Deployment's first Pods are Ready, so the table starts from a settled
+    shop rather than from Pods still warming up."""
+    from kubernetes import client as k8s
 
+    from e2e.load import LoadDriver, is_ready
+
+    names = [s.name for s in scenario.SERVICES] + [TWIN]
+    core = k8s.CoreV1Api(api)
+    deadline = time.monotonic() + READY_DELAY + 60
+    while time.monotonic() < deadline:
+        pods = core.list_namespaced_pod(namespace).items
+        ready = sum(is_ready(p) for p in pods if p.metadata.deletion_timestamp is None)
+        if ready >= BASELINE * len(names):
+            break
+        time.sleep(1)
     drivers = []
-    for name in [s.name for s in scenario.SERVICES] + [TWIN]:
+    for name in names:
         src = TWIN_OF if name == TWIN else name
         trace = cores_trace(forecasts[src], src, origin)
         d = LoadDriver(api, namespace, f"app={name}", trace, capacity=1.0, origin=origin)

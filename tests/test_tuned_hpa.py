@@ -26,27 +26,27 @@ def _demand(n: int = 2400, seed: int = 3) -> np.ndarray:
 
 
 def test_a_lower_target_is_the_base_row_with_demand_scaled_by_the_target_ratio():
-    """core.frontier's algebra: the HPA at target u' with per_replica p·u'/u makes the
-    same decisions as the HPA at p replaying demand × u/u' — checked by running both."""
-    d, p, u = _demand(), 0.7, 0.7
+    """core.frontier's algebra: the HPA at target u' with per_replica carry·u'/u makes the
+    same decisions as the HPA at carry replaying demand × u/u' — checked by running both."""
+    d, carry, u = _demand(), 0.7, 0.7
     hpa = hm.HpaConfig(max_replicas=200, target_utilization=u)
     for lower in (0.5, 0.35, 0.2):
-        real = hm.simulate(d, np.ones((1, len(d)), int), per_replica=p * lower / u, hpa=hpa,
+        real = hm.simulate(d, np.ones((1, len(d)), int), per_replica=carry * lower / u, hpa=hpa,
                            ready_delay_steps=20)  # fmt: skip
-        scaled = hm.simulate(d * u / lower, np.ones((1, len(d)), int), per_replica=p, hpa=hpa,
+        scaled = hm.simulate(d * u / lower, np.ones((1, len(d)), int), per_replica=carry, hpa=hpa,
                              ready_delay_steps=20)  # fmt: skip
         np.testing.assert_array_equal(real.replicas, scaled.replicas)
         np.testing.assert_array_equal(real.ready, scaled.ready)
         # ... and it is a different trace from the base target's, so the check can fail.
-        base = hm.simulate(d, np.ones((1, len(d)), int), per_replica=p, hpa=hpa,
+        base = hm.simulate(d, np.ones((1, len(d)), int), per_replica=carry, hpa=hpa,
                            ready_delay_steps=20)  # fmt: skip
         assert real.replicas.sum() > base.replicas.sum()
         # Saturation stays physical: demand above ready pods × their 100 % capacity
-        # (p / u = 1 core here, the pod's request as the HPA doc's utilization divides by).
-        m = bt.metrics(scaled, d * u / lower, per_replica=p, target=lower, sync=SYNC)[0]
-        want = float(np.sum(d > real.ready[0] * (p / u)) * 0.25)
+        # (carry / u = 1 core here, the pod's request as the HPA doc's utilization divides by).
+        m = bt.metrics(scaled, d * u / lower, per_replica=carry, target=lower, sync=SYNC)[0]
+        want = float(np.sum(d > real.ready[0] * (carry / u)) * 0.25)
         assert m["under_capacity_minutes"] == pytest.approx(want)
-        util = d / (real.ready[0] * (p / u))
+        util = d / (real.ready[0] * (carry / u))
         assert m["peak_utilization"] == pytest.approx(util.max())
 
 

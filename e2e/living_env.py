@@ -55,14 +55,7 @@ def living_env(cp: ControlPlane, tmp: Path, api: k8s.ApiClient) -> Iterator[Env]
         yield env
     finally:
         env.stop_all()
-        custom = k8s.CustomObjectsApi(api)
-        for p in custom.list_namespaced_custom_object(
-            "floorcast.dev", "v1alpha1", ns, "forecastscalingpolicies"
-        )["items"]:
-            custom.patch_namespaced_custom_object(
-                "floorcast.dev", "v1alpha1", ns, "forecastscalingpolicies",
-                p["metadata"]["name"], {"metadata": {"finalizers": None}},
-            )  # fmt: skip
+        env.release_policies()
         core.delete_namespace(ns)
 
 

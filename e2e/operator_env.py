@@ -99,6 +99,17 @@ class Env:
     def operator_log(self) -> str:
         return "\n".join(p.read_text()[-4000:] for p in sorted(self.log_dir.glob("operator-*")))
 
+    def release_policies(self) -> None:
+        """Strip every policy's finalizer so the namespace can go even if the
+        operator that would have removed them is gone."""
+        try:
+            for p in self.custom.list_namespaced_custom_object(GROUP, VERSION, self.namespace,
+                                                               PLURAL)["items"]:  # fmt: skip
+                self.custom.patch_namespaced_custom_object(GROUP, VERSION, self.namespace,
+                    PLURAL, p["metadata"]["name"], {"metadata": {"finalizers": None}})  # fmt: skip
+        except ApiException:
+            pass
+
     def stop_all(self) -> None:
         for p in self.procs:
             if p.poll() is None:
@@ -194,14 +205,7 @@ def env_fixture(
         yield e
     finally:
         e.stop_all()
-        # Let the namespace go even if a finalizer's operator is gone.
-        try:
-            for p in e.custom.list_namespaced_custom_object(GROUP, VERSION, namespace,
-                                                            PLURAL)["items"]:  # fmt: skip
-                e.custom.patch_namespaced_custom_object(GROUP, VERSION, namespace, PLURAL,
-                    p["metadata"]["name"], {"metadata": {"finalizers": None}})  # fmt: skip
-        except ApiException:
-            pass
+        e.release_policies()
 
 
 def min_replicas(env: Env, want: int) -> Callable[[], bool]:

@@ -159,34 +159,6 @@ def ensure_built() -> Binaries:
     return bins
 
 
-def helm_path() -> Path:
-    return cache_root() / "helm" / HELM_VERSION / "helm"
-
-
-def ensure_helm() -> Path:
-    """Return the Helm CLI the chart tests run, building it (under a lock) if missing.
-
-    Pinned in ``modules/helm``; the version string is stamped in as Helm's own
-    Makefile does, so ``helm version`` and the chart's kubeVersion checks see it.
-    """
-    out = helm_path()
-    if out.exists():
-        return out
-    if shutil.which("go") is None:
-        raise RuntimeError("the Go toolchain is needed to build helm: `go` is not on PATH")
-    out.parent.mkdir(parents=True, exist_ok=True)
-    with open(out.parent / ".build.lock", "w") as lock:
-        fcntl.flock(lock, fcntl.LOCK_EX)
-        if out.exists():
-            return out
-        _log(f"building helm {HELM_VERSION} into {out.parent}")
-        tmp = out.parent / ".partial-helm"
-        ldflags = f"-s -w -X helm.sh/helm/v3/internal/version.version={HELM_VERSION}"
-        _go_build(MODULES / "helm", tmp, ["helm.sh/helm/v3/cmd/helm"], ldflags)
-        os.replace(tmp, out)
-    return out
-
-
 @dataclass(frozen=True)
 class _Tool:
     name: str
@@ -196,6 +168,15 @@ class _Tool:
     ldflags: str = "-s -w"
 
 
+#: Pinned in ``modules/helm``; the version string is stamped in as Helm's own
+#: Makefile does, so ``helm version`` and the chart's kubeVersion checks see it.
+_HELM = _Tool(
+    "helm",
+    HELM_VERSION,
+    "helm",
+    "helm.sh/helm/v3/cmd/helm",
+    f"-s -w -X helm.sh/helm/v3/internal/version.version={HELM_VERSION}",
+)
 _KWOK = _Tool(
     "kwok",
     KWOK_VERSION,
@@ -232,6 +213,15 @@ def _ensure_tool(tool: _Tool) -> Path:
         _go_build(MODULES / tool.module, tmp, [tool.package], tool.ldflags)
         os.replace(tmp, out)
     return out
+
+
+def helm_path() -> Path:
+    return _tool_path(_HELM)
+
+
+def ensure_helm() -> Path:
+    """The Helm CLI the chart tests run, built (under a lock) if missing."""
+    return _ensure_tool(_HELM)
 
 
 def kwok_path() -> Path:

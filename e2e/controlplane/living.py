@@ -25,7 +25,6 @@ matters here).
 
 from __future__ import annotations
 
-import ssl
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -35,7 +34,13 @@ import yaml
 from kubernetes import client as k8s
 
 from e2e.controlplane import build, pki
-from e2e.controlplane.process import ControlPlaneError, HttpProbe, free_ports, wait_for
+from e2e.controlplane.process import (
+    ControlPlaneError,
+    HttpProbe,
+    free_ports,
+    insecure_context,
+    wait_for,
+)
 
 if TYPE_CHECKING:
     from e2e.controlplane.runner import ControlPlane
@@ -63,63 +68,35 @@ class LivingSettings:
     metric_resolution: str = "15s"
 
 
+def _stage(name: str, kind: str, match: list[dict], next_: dict, **extra: object) -> dict:
+    """One kwok Stage: when a ``kind`` object matches ``match``, apply ``next_``."""
+    spec = {"resourceRef": {"apiGroup": "v1", "kind": kind},
+            "selector": {"matchExpressions": match}, "next": next_, **extra}  # fmt: skip
+    return {"apiVersion": "kwok.x-k8s.io/v1alpha1", "kind": "Stage",
+            "metadata": {"name": name}, "spec": spec}  # fmt: skip
+
+
 def _pod_stages(ready_delay_ms: int) -> list[dict]:
-    running = {
-        "apiVersion": "kwok.x-k8s.io/v1alpha1",
-        "kind": "Stage",
-        "metadata": {"name": "floorcast-pod-running"},
-        "spec": {
-            "resourceRef": {"apiGroup": "v1", "kind": "Pod"},
-            "selector": {
-                "matchExpressions": [
-                    {"key": ".metadata.deletionTimestamp", "operator": "DoesNotExist"},
-                    {"key": ".status.podIP", "operator": "DoesNotExist"},
-                ]
-            },
-            "next": {"statusTemplate": _STATUS_TEMPLATE.replace("{{READY}}", "False")},
-        },
+    alive = {"key": ".metadata.deletionTimestamp", "operator": "DoesNotExist"}
+    not_ready = {"key": '.status.conditions.[] | select( .type == "Ready" ) | .status',
+                 "operator": "In", "values": ["False"]}  # fmt: skip
+    delay = {
+        "durationMilliseconds": ready_delay_ms,
+        "durationFrom": {"expressionFrom": f'.metadata.annotations["{READY_DELAY_ANNOTATION}"]'},
     }
-    ready = {
-        "apiVersion": "kwok.x-k8s.io/v1alpha1",
-        "kind": "Stage",
-        "metadata": {"name": "floorcast-pod-ready"},
-        "spec": {
-            "resourceRef": {"apiGroup": "v1", "kind": "Pod"},
-            "selector": {
-                "matchExpressions": [
-                    {"key": ".metadata.deletionTimestamp", "operator": "DoesNotExist"},
-                    {"key": ".status.podIP", "operator": "Exists"},
-                    {
-                        "key": '.status.conditions.[] | select( .type == "Ready" ) | .status',
-                        "operator": "In",
-                        "values": ["False"],
-                    },
-                ]
-            },
-            "delay": {
-                "durationMilliseconds": ready_delay_ms,
-                "durationFrom": {
-                    "expressionFrom": f'.metadata.annotations["{READY_DELAY_ANNOTATION}"]'
-                },
-            },
-            # The Pod keeps the IPs it got when it started (status.podIPs is immutable).
-            "next": {"statusTemplate": _STATUS_TEMPLATE.replace("{{READY}}", "True")
-                     .split("{{ $hostIPs")[0] + "phase: Running\n"},
-        },
-    }
-    delete = {
-        "apiVersion": "kwok.x-k8s.io/v1alpha1",
-        "kind": "Stage",
-        "metadata": {"name": "floorcast-pod-delete"},
-        "spec": {
-            "resourceRef": {"apiGroup": "v1", "kind": "Pod"},
-            "selector": {
-                "matchExpressions": [{"key": ".metadata.deletionTimestamp", "operator": "Exists"}]
-            },
-            "next": {"delete": True},
-        },
-    }
-    return [running, ready, delete]
+    # The Pod keeps the IPs it got when it started (status.podIPs is immutable).
+    ready_status = _STATUS_TEMPLATE.replace("{{READY}}", "True").split("{{ $hostIPs")[0]
+    return [
+        _stage("floorcast-pod-running", "Pod",
+               [alive, {"key": ".status.podIP", "operator": "DoesNotExist"}],
+               {"statusTemplate": _STATUS_TEMPLATE.replace("{{READY}}", "False")}),
+        _stage("floorcast-pod-ready", "Pod",
+               [alive, {"key": ".status.podIP", "operator": "Exists"}, not_ready],
+               {"statusTemplate": ready_status + "phase: Running\n"}, delay=delay),
+        _stage("floorcast-pod-delete", "Pod",
+               [{"key": ".metadata.deletionTimestamp", "operator": "Exists"}],
+               {"delete": True}),
+    ]  # fmt: skip
 
 
 # The Pod's status while it runs; {{READY}} is False while it warms up, then True.
@@ -227,29 +204,11 @@ phase: Running
     }
     is_ready = dict(not_ready, operator="In")
     return [
-        {
-            "apiVersion": "kwok.x-k8s.io/v1alpha1",
-            "kind": "Stage",
-            "metadata": {"name": "floorcast-node-initialize"},
-            "spec": {
-                "resourceRef": {"apiGroup": "v1", "kind": "Node"},
-                "selector": {"matchExpressions": [not_ready]},
-                "next": {"statusTemplate": init},
-            },
-        },
-        {
-            "apiVersion": "kwok.x-k8s.io/v1alpha1",
-            "kind": "Stage",
-            "metadata": {"name": "floorcast-node-heartbeat"},
-            "spec": {
-                "resourceRef": {"apiGroup": "v1", "kind": "Node"},
-                "selector": {"matchExpressions": [is_ready]},
-                "delay": {"durationMilliseconds": 20000, "jitterDurationMilliseconds": 5000},
-                "next": {"statusTemplate": conditions},
-                "immediateNextStage": True,
-            },
-        },
-    ]
+        _stage("floorcast-node-initialize", "Node", [not_ready], {"statusTemplate": init}),
+        _stage("floorcast-node-heartbeat", "Node", [is_ready], {"statusTemplate": conditions},
+               delay={"durationMilliseconds": 20000, "jitterDurationMilliseconds": 5000},
+               immediateNextStage=True),
+    ]  # fmt: skip
 
 
 def _metrics_objects() -> list[dict]:
@@ -412,7 +371,7 @@ def start(cp: ControlPlane, run: Path, logs: Path, settings: LivingSettings) -> 
     sched.start()
     cp.startup_seconds["kube-scheduler"] = wait_for(
         "kube-scheduler /readyz",
-        HttpProbe(f"https://127.0.0.1:{sched_port}/readyz", _insecure()),
+        HttpProbe(f"https://127.0.0.1:{sched_port}/readyz", insecure_context()),
         [*base, sched],
         cp.ready_timeout,
     )
@@ -484,11 +443,3 @@ def _available(api: k8s.ApiClient) -> bool:
     since a Node's usage is its Pods' sum, so this is the readiness to wait for)."""
     svc = k8s.ApiregistrationV1Api(api).read_api_service(METRICS_APISERVICE)
     return any(c.type == "Available" and c.status == "True" for c in svc.status.conditions or [])
-
-
-def _insecure() -> ssl.SSLContext:
-    # kube-scheduler serves a self-signed certificate; we only ask if it is ready.
-    ctx = ssl.create_default_context()
-    ctx.check_hostname = False
-    ctx.verify_mode = ssl.CERT_NONE
-    return ctx

@@ -34,6 +34,7 @@ from e2e.controlplane.process import (
     HttpProbe,
     ManagedProcess,
     free_ports,
+    insecure_context,
     register_cleanup,
     unregister_cleanup,
     wait_for,
@@ -250,7 +251,7 @@ class ControlPlane(Cluster):
         kcm.start()
         self.startup_seconds["kube-controller-manager"] = wait_for(
             "kube-controller-manager /healthz",
-            HttpProbe(f"https://127.0.0.1:{kcm_port}/healthz", _insecure_context()),
+            HttpProbe(f"https://127.0.0.1:{kcm_port}/healthz", insecure_context()),
             [self._procs["etcd"], self._procs["kube-apiserver"], kcm],
             self.ready_timeout,
         )
@@ -359,12 +360,3 @@ class ControlPlane(Cluster):
     def kubectl_binary(self) -> str:
         bins = self._binaries or build.binaries()
         return str(bins.kubectl)
-
-
-def _insecure_context() -> ssl.SSLContext:
-    # kube-controller-manager serves a self-signed certificate it made itself; we
-    # only ask it whether it is healthy.
-    ctx = ssl.create_default_context()
-    ctx.check_hostname = False
-    ctx.verify_mode = ssl.CERT_NONE
-    return ctx

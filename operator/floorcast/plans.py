@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from floorcast.core import planning
+from floorcast.core import planning, quantiles
 from floorcast.core.series import Series
 from floorcast.errors import InputError
 from floorcast.policy import PolicySpec
@@ -48,11 +48,41 @@ def bounds_for(spec: PolicySpec, *, baseline: int, hpa_max: int) -> Bounds:
     return Bounds(lower=lower, ceiling=max(ceiling, baseline), baseline=baseline, hpa_max=hpa_max)
 
 
-def planning_load(spec: PolicySpec, forecast: Series) -> np.ndarray:
-    """The forecast the floor is sized on: the upper band when the policy asks and it exists."""
+def _sized_on(spec: PolicySpec, forecast: Series) -> tuple[np.ndarray, str]:
+    """(the line the floor is sized on, its short label); docs/policy.md, "serviceLevel".
+
+    Without ``serviceLevel`` (the default) it is today's rule: the upper band when the
+    policy asks and the forecast has one, else the value. With it, the forecast's
+    quantile at that level, interpolated between the levels it carries and clamped to
+    the nearest outside them; a forecast without quantiles falls back to today's rule
+    and the label says so.
+    """
+    if spec.service_level is not None and forecast.quantiles is not None:
+        line, got = quantiles.quantile_at(forecast.levels, forecast.quantiles, spec.service_level)
+        label = f"q{quantiles.level_name(got.level)}"
+        if got.clamped:
+            label += f" (serviceLevel {quantiles.level_name(got.asked)} is outside the "
+            label += "forecast's quantiles, clamped)"
+        return line, label
     if spec.use_upper_bound and forecast.upper is not None:
-        return np.asarray(forecast.upper, dtype=np.float64)
-    return np.asarray(forecast.values, dtype=np.float64)
+        line, label = np.asarray(forecast.upper, dtype=np.float64), "upper band"
+    else:
+        line, label = np.asarray(forecast.values, dtype=np.float64), "value"
+    if spec.service_level is not None:
+        label += f" (serviceLevel {quantiles.level_name(spec.service_level)}: the forecast "
+        label += "has no quantiles)"
+    return line, label
+
+
+def planning_load(spec: PolicySpec, forecast: Series) -> np.ndarray:
+    """The forecast the floor is sized on (``planning_label`` names it)."""
+    return _sized_on(spec, forecast)[0]
+
+
+def planning_label(spec: PolicySpec, forecast: Series) -> str:
+    """A short human label of what the floor is sized on: ``q0.95``, ``upper band`` or
+    ``value``, with the reason when a service level was clamped or could not be used."""
+    return _sized_on(spec, forecast)[1]
 
 
 def refined_load(spec: PolicySpec, forecast: Series, fine: pd.Timedelta) -> np.ndarray:
@@ -142,7 +172,7 @@ def window_need(plan: FloorPlan, *, band: bool = True) -> float:
     ``band=False`` reads the forecast's value instead of the band the policy plans on.
     """
     spec, s = plan.spec, plan.schedule
-    use = spec if band else replace(spec, use_upper_bound=False)
+    use = spec if band else replace(spec, use_upper_bound=False, service_level=None)
     load = refined_load(use, plan.forecast, s.step)
     ev = policy_event_factors(spec, pd.date_range(s.start, periods=len(load), freq=s.step))
     i = s.index_at(plan.at)

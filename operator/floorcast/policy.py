@@ -42,8 +42,10 @@ from floorcast.policy_fields import (  # noqa: F401  (MAX_* and PolicyError re-e
     MAX_HEADROOM,
     MAX_PER_REPLICA,
     MAX_REPLICAS,
+    MAX_SERVICE_LEVEL,
     MAX_TIME_LENGTH,
     MAX_URL_LENGTH,
+    MIN_SERVICE_LEVEL,
     PolicyError,
     _describe,
     _Reader,
@@ -81,6 +83,7 @@ _METADATA_FIELDS = (
 _SPEC_FIELDS = (
     "targetRef", "forecast", "capacity", "leadTime", "holdTime", "headroom",
     "useUpperBound", "minReplicas", "maxReplicas", "mode", "plannedEvents", "liveCorrection",
+    "serviceLevel",
 )  # fmt: skip
 _DNS_SUBDOMAIN = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$")
 _DNS_LABEL = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?$")
@@ -136,6 +139,9 @@ class PolicySpec:
     hold_time: timedelta = DEFAULT_HOLD_TIME
     headroom: float = DEFAULT_HEADROOM
     use_upper_bound: bool = DEFAULT_USE_UPPER_BOUND
+    #: The probability the floor covers demand: which forecast quantile it is sized
+    #: on (docs/policy.md, "serviceLevel"); None plans as ``useUpperBound`` says.
+    service_level: float | None = None
     min_replicas: int | None = None
     max_replicas: int | None = None
     mode: Mode = DEFAULT_MODE
@@ -202,6 +208,8 @@ def parse_spec(spec: _M, *, source: str = "policy") -> PolicySpec:
         headroom=r.number(s, "spec.headroom", above=0, inclusive=True, maximum=MAX_HEADROOM,
                           default=DEFAULT_HEADROOM),
         use_upper_bound=r.boolean(s, "spec.useUpperBound", DEFAULT_USE_UPPER_BOUND),
+        service_level=r.number(s, "spec.serviceLevel", above=MIN_SERVICE_LEVEL, inclusive=True,
+                               maximum=MAX_SERVICE_LEVEL, default=None),
         min_replicas=low,
         max_replicas=high,
         mode=cast(Mode, mode),

@@ -39,6 +39,10 @@ MAX_EVENTS = 100
 #: liveCorrection.max at most 10: a forecast off by more than 10× is a broken
 #: forecast, not a level error to correct (common practice, no source).
 MAX_CORRECTION = 10.0
+#: serviceLevel in [0.5, 0.999]: below the median a floor would be sized under the
+#: forecast's middle, and above 0.999 a quantile is read from a tail the residual
+#: sample behind it cannot resolve (common practice, no source).
+MIN_SERVICE_LEVEL, MAX_SERVICE_LEVEL = 0.5, 0.999
 _RFC3339 = re.compile(r"^\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d+)?([Zz]|[+-]\d{2}:\d{2})$")
 
 

@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from floorcast.core.quantiles import quantile_problem
 from floorcast.durations import format_duration
 from floorcast.errors import InputError
 
@@ -81,6 +82,10 @@ class Series:
     source: str = "<series>"
     filled: np.ndarray | None = None
     meta: dict = field(default_factory=dict)
+    #: Optional forecast quantiles (docs/formats.md, "Quantiles"): ``levels`` strictly
+    #: increasing in (0, 1), ``quantiles[j]`` the load at ``levels[j]`` per sample.
+    levels: tuple[float, ...] = ()
+    quantiles: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         # Code that builds a Series directly gets the parser's invariants too; a breach
@@ -108,6 +113,11 @@ class Series:
         if problem:
             raise ValueError(f"{self.source}, sample {problem[0]}: {problem[1]}")
         put(self, "meta", dict(self.meta))
+        put(self, "levels", tuple(float(x) for x in self.levels))
+        put(self, "quantiles", _frozen(self.quantiles))
+        problem = quantile_problem(self.levels, self.quantiles, len(self.values))
+        if problem:
+            raise ValueError(f"{self.source}: {problem}")
 
     def __len__(self) -> int:
         return len(self.values)
@@ -116,12 +126,14 @@ class Series:
         # Arrays make dataclass equality ambiguous; "no mask" counts as "nothing filled".
         if not isinstance(other, Series):
             return NotImplemented
-        pairs = [(self.lower, other.lower), (self.upper, other.upper)]
+        pairs = [(self.lower, other.lower), (self.upper, other.upper),
+                 (self.quantiles, other.quantiles)]  # fmt: skip
         return (
             (self.start, self.step, self.unit, self.generated, self.meta)
             == (other.start, other.step, other.unit, other.generated, other.meta)
             and np.array_equal(self.values, other.values)
             and np.array_equal(self.filled_mask(), other.filled_mask())
+            and self.levels == other.levels
             and all(
                 (a is None) == (b is None) and (a is None or np.array_equal(a, b)) for a, b in pairs
             )
@@ -163,7 +175,8 @@ class Series:
             k: None if (a := getattr(self, k)) is None else a[i0:i1]
             for k in ("values", "lower", "upper", "filled")
         }
-        return replace(self, start=self.start + self.step * i0, **cut)
+        q = None if self.quantiles is None else self.quantiles[:, i0:i1]
+        return replace(self, start=self.start + self.step * i0, quantiles=q, **cut)
 
 
 # ------------------------------------------------------------------------ grid and gaps
@@ -223,6 +236,7 @@ def from_samples(
     kind: str = "row",
     lower: np.ndarray | None = None,
     upper: np.ndarray | None = None,
+    quantiles: np.ndarray | None = None,
     step: pd.Timedelta | None = None,
     max_gap: pd.Timedelta | None = DEFAULT_MAX_GAP,
     gap_fill: str = "linear",
@@ -323,6 +337,8 @@ def from_samples(
         values, lower, upper = (
             None if a is None else fill_gaps(slots, a, gap_fill) for a in (values, lower, upper)
         )
+        if quantiles is not None:
+            quantiles = np.array([fill_gaps(slots, q, gap_fill) for q in quantiles])
         filled = np.ones(len(values), dtype=bool)
         filled[slots] = False
     start = pd.Timestamp(origin + int(k[0]) * step_us, unit=UNIT, tz="UTC")
@@ -332,6 +348,7 @@ def from_samples(
         values=values,
         lower=lower,
         upper=upper,
+        quantiles=quantiles,
         filled=filled,
         source=source,
         **fields,
@@ -351,7 +368,8 @@ def resample(series: Series, step: pd.Timedelta, how: str = "mean") -> Series:
     if new == old or not len(series):
         return series
     t, filled = series.times.asi8, series.filled_mask()
-    arrays = (series.values, series.lower, series.upper)
+    qs = () if series.quantiles is None else tuple(series.quantiles)
+    arrays = (series.values, series.lower, series.upper, *qs)
     if new > old and how != "interpolate":
         bins = t // new
         starts = np.flatnonzero(np.r_[True, bins[1:] != bins[:-1]])
@@ -374,6 +392,7 @@ def resample(series: Series, step: pd.Timedelta, how: str = "mean") -> Series:
         values=out[0],
         lower=out[1],
         upper=out[2],
+        quantiles=np.array(out[3:]) if qs else None,
         filled=mask if mask.any() else None,
     )
 
@@ -408,6 +427,7 @@ def _bands(values: np.ndarray, lower: np.ndarray, upper: np.ndarray) -> Problem:
 
 
 __all__ = [
+
     "DEFAULT_MAX_GAP",
     "DEFAULT_STEP_TOLERANCE",
     "Series",

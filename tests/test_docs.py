@@ -101,13 +101,18 @@ def _blocks(lang: str) -> list[str]:
 
 def test_format_examples_parse_with_the_real_readers() -> None:
     csvs, jsons = _blocks("csv"), _blocks("json")
-    assert len(csvs) == 2 and len(jsons) == 1
+    assert len(csvs) == 3 and len(jsons) == 2
     history = parse_history(csvs[0], source="history example", fmt="csv")
     assert len(history.values) == 4
     band = parse_forecast(csvs[1], source="forecast CSV example", fmt="csv")
     assert band.upper is not None and float(band.upper[0]) == 3.0
     doc = parse_forecast(jsons[0], source="forecast JSON example", fmt="json")
     assert doc.unit == "cores" and str(doc.generated) == "2027-01-08 12:00:00+00:00"
+    # The Quantiles section's examples: levels as written, read back increasing.
+    qcsv = parse_forecast(csvs[2], source="quantile CSV example", fmt="csv")
+    assert qcsv.levels == (0.5, 0.9, 0.95, 0.99) and float(qcsv.quantiles[3, 1]) == 3.55
+    qjson = parse_forecast(jsons[1], source="quantile JSON example", fmt="json")
+    assert qjson.levels == (0.5, 0.95, 0.99) and qjson.upper is None
 
 
 @pytest.mark.parametrize(
@@ -117,6 +122,11 @@ def test_format_examples_parse_with_the_real_readers() -> None:
         ("timestamp,value\n2027-01-08T12:00:00Z,-1\n2027-01-08T12:05:00Z,1\n", "csv", "negative"),
         ('{"points": [{"t": "2027-01-08T12:00:00Z", "value": 1, "upperr": 2}]}', "json",
          "upperr"),
+        ("timestamp,value,q95\n2027-01-08T12:00:00Z,1,1\n", "forecast csv", "outside"),
+        ("timestamp,value,q0.5,q0.50\n2027-01-08T12:00:00Z,1,1,1\n", "forecast csv",
+         "repeats"),
+        ("timestamp,value,q0.5,q0.9\n2027-01-08T12:00:00Z,1,2,1\n", "forecast csv",
+         "must not decrease"),
     ],
 )  # fmt: skip
 def test_format_rules_stated_in_the_docs_hold(text: str, fmt: str, says: str) -> None:
@@ -124,7 +134,7 @@ def test_format_rules_stated_in_the_docs_hold(text: str, fmt: str, says: str) ->
 
     with pytest.raises(InputError, match=says):
         parse_history(text, source="x", fmt=fmt) if fmt == "csv" else parse_forecast(
-            text, source="x", fmt=fmt
+            text, source="x", fmt=fmt.split()[-1]
         )
 
 

@@ -9,13 +9,14 @@ from __future__ import annotations
 
 import csv
 import json
-import math
 import re
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from floorcast.core import series_quantile_text as qtext
+from floorcast.core.quantiles import level_name, monotone_problem
 from floorcast.core.series import (
     DEFAULT_MAX_GAP,
     DEFAULT_STEP_TOLERANCE,
@@ -27,17 +28,14 @@ from floorcast.core.series import (
     _dur,
     _first,
     _iso,
-    _load_problem,
     _us,
     from_samples,
 )
+from floorcast.core.series_cells import _numbers, _times
 from floorcast.durations import parse_duration
 from floorcast.errors import InputError
 
-_TS = r"\d{4}-\d{2}-\d{2}[T ]\d{2}:\d{2}:\d{2}(?:\.\d+)?(?:Z|[+-]\d{2}:\d{2})"
-_TS_ONE, _TS_RUN = re.compile(_TS), re.compile(rf"(?:{_TS}\n)*{_TS}")  # run: one C-level pass
-_NAIVE = re.compile(r"\d{4}-\d{2}-\d{2}(?:[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?)?")
-_POINT_KEYS = frozenset({"t", "value", "lower", "upper"})
+_POINT_KEYS = frozenset({"t", "value", "lower", "upper", "quantiles"})
 _TOP_KEYS = frozenset({"unit", "step", "generated", "points", "meta"})
 #: Forecast size limits (docs/operations.md, "Forecast limits"). A forecast is planned
 #: point by point, so its length bounds the operator's work and memory per policy;
@@ -65,55 +63,6 @@ def _json_depth(text: str) -> tuple[int, int]:
     return int(depth.max()), line
 _CORE, _BANDS = ["timestamp", "value"], ["lower", "upper"]
 
-# ------------------------------------------------------------------------ typed columns
-
-
-def _times(raw: list[Any], name: str = "timestamp") -> tuple[np.ndarray, Problem]:
-    """Vectorized RFC 3339 parse to UTC microseconds. The offset is mandatory: a bare
-    local time cannot be placed on the timeline without guessing a zone."""
-    empty = np.empty(0, dtype=np.int64)
-    if not set(map(type, raw)) <= {str}:
-        i = next(i for i, v in enumerate(raw) if type(v) is not str)
-        return empty, (
-            i,
-            f"missing {name} (key 't')" if raw[i] is None else f"{name} {raw[i]!r} is not a string",
-        )
-    text = raw
-    if not _TS_RUN.fullmatch("\n".join(text)):  # slow path only for unusual spellings
-        text = [s.strip().upper() for s in raw]
-        if not _TS_RUN.fullmatch("\n".join(text)):
-            i = next(i for i, s in enumerate(text) if not _TS_ONE.fullmatch(s))
-            if _NAIVE.fullmatch(text[i]):
-                return empty, (
-                    i,
-                    f"{name} {raw[i]!r} has no UTC offset (ambiguous); "
-                    "add 'Z' or an offset such as +02:00",
-                )
-            return empty, (i, f"{name} {raw[i]!r} is not an RFC 3339 timestamp")
-    parsed = pd.to_datetime(text, format="ISO8601", utc=True, errors="coerce")
-    i = _first(parsed.isna())
-    if i >= 0:
-        return empty, (i, f"{name} {raw[i]!r} is not a valid date and time")
-    return parsed.as_unit(UNIT).asi8, None
-
-
-def _numbers(raw: list[Any], name: str, from_text: bool) -> tuple[np.ndarray, Problem]:
-    if from_text:
-        arr = np.asarray(pd.to_numeric(raw, errors="coerce"), dtype=np.float64)
-    else:  # JSON: real numbers only, not "1.5" or true, which numpy would coerce
-        if not set(map(type, raw)) <= {int, float}:
-            i = next(i for i, v in enumerate(raw) if type(v) not in (int, float))
-            return np.empty(0), (
-                i,
-                f"missing {name}" if raw[i] is None else f"{name} {raw[i]!r} is not a number",
-            )
-        try:
-            arr = np.array(raw, dtype=np.float64)
-        except OverflowError:  # an integer beyond float range
-            arr = np.array([v if abs(v) < 1e308 else math.inf for v in raw], dtype=np.float64)
-    return arr, _load_problem(arr, raw, name, from_text)
-
-
 # ------------------------------------------------------------------------ text formats
 
 
@@ -126,8 +75,16 @@ def detect_format(text: str, source: str) -> str:
     return "json" if text.lstrip("\ufeff \t\r\n")[:1] in ("{", "[") else "csv"
 
 
+def _base(header: list[str], forecast: bool) -> list[str]:
+    """The header without its trailing quantile columns (forecasts only)."""
+    k = next((i for i, c in enumerate(header) if qtext.is_quantile_column(c)), len(header))
+    trailing = forecast and all(qtext.is_quantile_column(c) for c in header[k:])
+    return header[:k] if trailing else header
+
+
 def _header_problem(header: list[str], forecast: bool) -> str | None:
-    if header == _CORE or (forecast and header == _CORE + _BANDS):
+    base = _base(header, forecast)
+    if base == _CORE or (forecast and base == _CORE + _BANDS):
         return None
     names = _CORE + _BANDS if forecast else _CORE
     extra = [c for c in header if c not in names]
@@ -145,7 +102,7 @@ def _header_problem(header: list[str], forecast: bool) -> str | None:
         if len(header) == 3
         else "columns out of order"
     )
-    want = "timestamp,value[,lower,upper]" if forecast else "timestamp,value"
+    want = "timestamp,value[,lower,upper][,q<level>...]" if forecast else "timestamp,value"
     return f"{why}; expected header {want!r}, found {','.join(header)!r}"
 
 
@@ -168,7 +125,8 @@ def _read_csv(text: str, source: str, forecast: bool) -> dict[str, Any]:
         header, body = lines[keep[0]].split(","), [lines[i] for i in keep[1:]]
         widths = np.array([r.count(",") for r in body]) + 1
     header = [c.strip() for c in header]
-    problem = _header_problem(header, forecast)
+    levels, problem = qtext.csv_header(header, _base(header, forecast))
+    problem = _header_problem(header, forecast) or problem
     if problem:
         raise SeriesError(problem, source=source, row=keep[0] + 1)
     if not body:
@@ -192,6 +150,8 @@ def _read_csv(text: str, source: str, forecast: bool) -> dict[str, Any]:
         "value": cols["value"],
         "lower": cols.get("lower"),
         "upper": cols.get("upper"),
+        "levels": levels,
+        "quantiles": [cols[c] for c in header[len(header) - len(levels):]] if levels else None,
         "rows": np.asarray(keep[1:]) + 1,
         "kind": "row",
         "text": True,
@@ -212,7 +172,7 @@ def _read_json(text: str, source: str) -> dict[str, Any]:
         raise SeriesError(f"JSON nested deeper than {MAX_JSON_DEPTH} levels", source=source,
                           row=line, kind="line")  # fmt: skip
     try:
-        doc = json.loads(text)
+        doc = qtext.loads(text)
     except json.JSONDecodeError as e:
         raise SeriesError(
             f"invalid JSON: {e.msg} (column {e.colno})", source=source, row=e.lineno, kind="line"
@@ -245,13 +205,13 @@ def _read_json(text: str, source: str) -> dict[str, Any]:
             raise top(problem[1])
         fields["generated"] = pd.Timestamp(int(gen[0]), unit=UNIT, tz="UTC")
     for i, p in enumerate(points):
-        if type(p) is not dict:
+        if not isinstance(p, dict):
             raise at(i, "point must be an object")
         if not p.keys() <= _POINT_KEYS:
             raise at(
                 i,
                 f"unknown key {sorted(p.keys() - _POINT_KEYS)[0]!r}; allowed: "
-                "t, value, lower, upper",
+                "t, value, lower, upper, quantiles",
             )
     lower, upper = [p.get("lower") for p in points], [p.get("upper") for p in points]
     has = np.array(
@@ -263,11 +223,14 @@ def _read_json(text: str, source: str) -> dict[str, Any]:
             raise at(i, "'lower' and 'upper' must be given together, on every point or none")
     else:
         lower = upper = None
+    levels, quantiles = qtext.json_points(points, at) or ([], None)
     return {
         "t": [p.get("t") for p in points],
         "value": [p.get("value") for p in points],
         "lower": lower,
         "upper": upper,
+        "levels": levels,
+        "quantiles": quantiles,
         "rows": np.arange(len(points)),
         "kind": "point",
         "text": False,
@@ -305,6 +268,7 @@ def _parse(
         found.append(problem)
     if len(cols) == 3 and not any(found[1:]):  # band order only among valid numbers
         found.append(_bands(cols["value"], cols["lower"], cols["upper"]))
+    levels, quantiles = _quantiles(raw, found)
     found = [p for p in found if p is not None]
     if found:
         i, message = min(found, key=lambda p: p[0])  # report the earliest bad sample
@@ -317,10 +281,32 @@ def _parse(
         kind=raw["kind"],
         lower=cols.get("lower"),
         upper=cols.get("upper"),
+        quantiles=quantiles,
+        levels=levels,
         step=raw["step"],
         **grid,
         **raw["fields"],
     )
+
+
+def _quantiles(raw: dict[str, Any], found: list[Problem]) -> tuple[tuple[float, ...], Any]:
+    """The quantile columns as numbers, levels increasing; their problems go to
+    ``found`` (monotonicity only when every number is valid)."""
+    if raw["quantiles"] is None:
+        return (), None
+    idx = qtext.order(raw["levels"])
+    levels = tuple(raw["levels"][j] for j in idx)
+    arrays = []
+    for j in idx:
+        arr, problem = _numbers(raw["quantiles"][j], f"quantile {level_name(raw['levels'][j])}",
+                                raw["text"])  # fmt: skip
+        found.append(problem)
+        arrays.append(arr)
+    if any(found):
+        return levels, None
+    q = np.array(arrays)
+    found.append(monotone_problem(levels, q))
+    return levels, q
 
 
 def parse_history(
@@ -370,7 +356,8 @@ def parse_forecast(
 
 def _columns(series: Series) -> list[list[str]]:
     cols = [_iso(series.times.asi8, _us(series.step)).tolist()]
-    for a in (series.values, series.lower, series.upper):
+    qs = () if series.quantiles is None else tuple(series.quantiles)
+    for a in (series.values, series.lower, series.upper, *qs):
         if a is not None:
             cols.append(list(map(repr, a.tolist())))  # shortest text that round-trips
     return cols
@@ -379,7 +366,8 @@ def _columns(series: Series) -> list[list[str]]:
 def to_csv_text(series: Series) -> str:
     """CSV drops unit, generated and meta by design; JSON keeps them."""
     cols = _columns(series)
-    header = ",".join((_CORE + _BANDS)[: len(cols)])
+    names = (_CORE + _BANDS)[: len(cols) - len(series.levels)]
+    header = ",".join(names + qtext.csv_header_names(series.levels))
     return "\n".join([header, *map(",".join, zip(*cols, strict=True))]) + "\n"
 
 
@@ -391,8 +379,9 @@ def to_json_text(series: Series) -> str:
     if series.meta:
         head["meta"] = series.meta
     cols = _columns(series)
-    keys = ["value", "lower", "upper"][: len(cols) - 1]
-    row = '    {"t": "%s", ' + ", ".join(f'"{k}": %s' for k in keys) + "}"
+    keys = ["value", "lower", "upper"][: len(cols) - 1 - len(series.levels)]
+    row = '    {"t": "%s", ' + ", ".join(f'"{k}": %s' for k in keys)
+    row += (qtext.json_fragment(series.levels) if series.levels else "") + "}"
     points = ",\n".join(row % r for r in zip(*cols, strict=True))
 
     def plain(v: Any) -> Any:  # numpy scalars and arrays often end up in meta

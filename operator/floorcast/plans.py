@@ -152,6 +152,7 @@ class FloorPlan:
             "ceiling": self.bounds.ceiling,
             "per_replica": self.per_replica,
             "plan_step_seconds": self.schedule.step.total_seconds(),
+            "sized_on": planning_label(self.spec, self.forecast),
             "forecast": {
                 "start": iso(self.forecast.start),
                 "end": iso(self.forecast.end),

@@ -15,7 +15,7 @@ from rich.console import Console
 from rich.table import Table
 
 from floorcast.cli.options import PER_REPLICA, REPLICAS
-from floorcast.plans import FloorPlan, plan_policy
+from floorcast.plans import FloorPlan, plan_policy, planning_label
 from floorcast.policy import load_policy_file
 from floorcast.sources.files import read_forecast
 from floorcast.timefmt import iso, parse_rfc3339
@@ -107,6 +107,7 @@ def print_plan(result: FloorPlan, name: str, console: Console) -> None:
         f"  (baseline {b.baseline}, lower {b.lower}, ceiling {b.ceiling},"
         f" {result.per_replica:g} per replica)"
     )
+    console.print(f"sized on {planning_label(result.spec, result.forecast)}", markup=False)
     if not result.changes:
         console.print("no floor changes within the forecast")
         return

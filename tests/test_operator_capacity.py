@@ -15,7 +15,7 @@ from test_reconcile import MANAGED, hpa, observed, policy
 from floorcast.controller.capacity import cpu_cores, per_replica_from_hpa, requested_cpu
 from floorcast.controller.decide import decide
 from floorcast.controller.state import HpaState
-from floorcast.kube.hpa import _cpu_target
+from floorcast.kube.hpa import hpa_from_body
 
 TARGET = ("apps/v1", "Deployment", "web")
 
@@ -77,6 +77,9 @@ def test_cpu_target_is_read_from_the_v2_hpa() -> None:
     def res(name: str, type_: str, **target: int) -> k8s.V2MetricSpec:
         return k8s.V2MetricSpec(type="Resource", resource=k8s.V2ResourceMetricSource(
             name=name, target=k8s.V2MetricTarget(type=type_, **target)))  # fmt: skip
+
+    def _cpu_target(obj: k8s.V2HorizontalPodAutoscaler) -> int | None:
+        return hpa_from_body(k8s.ApiClient().sanitize_for_serialization(obj)).cpu_target_utilization
 
     assert (
         _cpu_target(

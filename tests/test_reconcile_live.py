@@ -19,7 +19,7 @@ from test_reconcile import NOW, forecast, hpa, observed, policy
 from floorcast.controller import live
 from floorcast.controller.decide import ForecastState, decide
 from floorcast.controller.state import LiveMemory
-from floorcast.kube.hpa import _cpu_current
+from floorcast.kube.hpa import hpa_from_body
 
 LC = {"enabled": True, "halfLife": "10m", "min": 0.5, "max": 2.0}
 
@@ -135,6 +135,11 @@ def test_cpu_current_reads_the_hpa_status():
             max_replicas=5, scale_target_ref=k8s.V2CrossVersionObjectReference(kind="D", name="d"))
         status = k8s.V2HorizontalPodAutoscalerStatus(current_metrics=list(ms), desired_replicas=3)
         return k8s.V2HorizontalPodAutoscaler(spec=spec, status=status)
+
+    def _cpu_current(obj: k8s.V2HorizontalPodAutoscaler) -> tuple[int | None, str | None]:
+        # The API's JSON, as a GET or a watch event carries it.
+        got = hpa_from_body(k8s.ApiClient().sanitize_for_serialization(obj))
+        return got.cpu_current_utilization, got.cpu_current_error
 
     assert _cpu_current(h(metric("memory", 80), metric("cpu", 64))) == (64, None)
     assert _cpu_current(h()) == (None, None)

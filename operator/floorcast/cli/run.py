@@ -9,9 +9,9 @@ from floorcast.durations import parse_duration
 from floorcast.errors import InputError
 
 
-def _interval(value: str) -> float:
+def _interval(value: str, flag: str = "--interval") -> float:
     try:
-        return parse_duration(value, field="--interval").total_seconds()
+        return parse_duration(value, field=flag).total_seconds()
     except InputError as e:
         raise click.BadParameter(e.problem) from None
 
@@ -27,7 +27,12 @@ def _interval(value: str) -> float:
     help="Watch this namespace (repeatable).",
 )
 @click.option("--all-namespaces", is_flag=True, help="Watch every namespace (the default).")
-@click.option("--interval", default="30s", show_default=True, help="Timer between reconciles.")
+@click.option("--interval", default="10m", show_default=True,
+              help="Safety-net resync: the longest a policy goes unreconciled when nothing "
+              "wakes it (policies wake at their planned changes and on input changes).")
+@click.option("--observe-interval", default="30s", show_default=True,
+              help="How often a policy with liveCorrection observes its HPA's load, and how "
+              "often a forecast no watch reports (URL, unlabelled ConfigMap) is read.")
 @click.option(
     "--allow-url-host",
     "hosts",
@@ -89,6 +94,7 @@ def _interval(value: str) -> float:
     "memory during the start-up flood.",
 )
 def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interval: str,
+        observe_interval: str,
         hosts: tuple[str, ...], metrics_port: int, liveness_port: int, log_format: str,
         kubeconfig: str | None, lease_name: str | None, lease_namespace: str | None,
         identity: str | None, https_only: bool, ca_bundle: str | None,
@@ -109,8 +115,12 @@ def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interv
     seconds = _interval(interval)
     if seconds < 1:
         raise click.BadParameter("must be at least 1s", param_hint="--interval")
+    observe = _interval(observe_interval, "--observe-interval")
+    if observe < 1:
+        raise click.BadParameter("must be at least 1s", param_hint="--observe-interval")
     run_operator(Settings(
-        namespaces=tuple(namespaces), interval_seconds=seconds, allowed_url_hosts=tuple(hosts),
+        namespaces=tuple(namespaces), interval_seconds=seconds,
+        observe_interval_seconds=observe, allowed_url_hosts=tuple(hosts),
         dry_run=dry_run, metrics_port=metrics_port or None, liveness_port=liveness_port or None,
         log_format=log_format, kubeconfig=kubeconfig, lease_name=lease_name,
         lease_namespace=lease_namespace, identity=identity,

@@ -31,7 +31,9 @@ from floorcast.controller.connections import bounded_session, connection_limit
 from floorcast.controller.handlers import register
 from floorcast.controller.leader import Elector, LeaseConfig, keep_leading, wait_for_leadership
 from floorcast.controller.reconcile import Runtime
+from floorcast.controller.schedule import Periods
 from floorcast.controller.settings import Settings
+from floorcast.controller.workers import Workers
 
 log = logging.getLogger("floorcast.operator")
 
@@ -119,9 +121,14 @@ def run(settings: Settings) -> None:
         log_format=kopf.LogFormat.JSON if settings.log_format == "json" else kopf.LogFormat.FULL,
     )
     logging.getLogger("floorcast").setLevel(logging.INFO)
+    # kopf logs every event handler's success at INFO: a line per watch event.
+    logging.getLogger("kopf.objects").setLevel(logging.WARNING)
     registry = kopf.OperatorRegistry()
-    rt = Runtime(settings=settings, api=api_client(settings))
+    rt = Runtime(settings=settings, api=api_client(settings), periods=Periods(
+        resync=settings.interval_seconds, observe=settings.observe_interval_seconds,
+        unwatched=settings.observe_interval_seconds))  # fmt: skip
     register(registry, rt)
+    workers = Workers(rt, count=settings.workers)
 
     @kopf.on.login(registry=registry)
     async def login(**kwargs: Any) -> kopf.AiohttpSession | None:
@@ -143,12 +150,20 @@ def run(settings: Settings) -> None:
         settings.persistence.diffbase_storage = kopf.AnnotationsDiffBaseStorage(
             prefix="floorcast.dev", key="last-handled-configuration"
         )
-        settings.persistence.finalizer = "floorcast.dev/restore-baseline"
+        # Not our finalizer's name: kopf releases its own finalizer from any object being
+        # deleted that it has no deletion handler for, and the operator's finalizer
+        # (kube/finalizer.py) must stay until the baseline is back.
+        settings.persistence.finalizer = "floorcast.dev/kopf-unused"
         settings.watching.server_timeout = 60
         settings.watching.client_timeout = 90
         settings.watching.connect_timeout = 5
         settings.networking.request_timeout = 30
         settings.execution.max_workers = 8
+        workers.start()
+
+    @kopf.on.cleanup(registry=registry)
+    def stop_workers(**_: Any) -> None:
+        workers.stop()
 
     if settings.metrics_port:
         metrics.serve(settings.metrics_port)
@@ -158,8 +173,9 @@ def run(settings: Settings) -> None:
         f"http://0.0.0.0:{settings.liveness_port}/healthz" if settings.liveness_port else None
     )
     where = "all namespaces" if settings.all_namespaces else ", ".join(settings.namespaces)
-    log.info("floorcast operator starting: %s, interval %gs, dry-run %s", where,
-             settings.interval_seconds, settings.dry_run)  # fmt: skip
+    log.info("floorcast operator starting: %s, resync %gs, observe %gs, dry-run %s", where,
+             settings.interval_seconds, settings.observe_interval_seconds,
+             settings.dry_run)  # fmt: skip
     try:
         kopf.run(
             registry=registry,

@@ -1,18 +1,27 @@
-"""kopf wiring: when to reconcile. All the deciding is in ``decide``, the doing in ``reconcile``.
+"""kopf wiring: what wakes a policy. The deciding is in ``decide``, the doing in
+``reconcile``, the waking order in ``workqueue`` and ``schedule``.
 
-Triggers (level-triggered; every one runs the same full reconcile):
+kopf is used for its watches and indexes only (docs/operations.md, "When the operator
+reconciles"); every handler here is an ``on.event`` handler that records what it saw
+and queues the policies it concerns. Worker threads (controller/workers.py) take keys
+from the queue and run the one level-triggered reconcile, which says when it wants to
+run next. So:
 
-* create / update / resume of a policy, and a timer (``--interval``, default 30 s);
-* a change to a ConfigMap labelled ``floorcast.dev/forecast=true``: the policies that
-  reference it (found through an in-memory index, not a list call) are reconciled at
-  once, so a new forecast acts in about a second without polling every object;
-* deletion, through kopf's finalizer: the baseline is restored before the policy goes.
+* a policy is reconciled when it changes (spec, deletion), when its forecast
+  ConfigMap (labelled ``floorcast.dev/forecast=true``) changes, when its HPA's spec or
+  our annotations on it change, at its next planned floor change, when its forecast
+  goes stale, and on a slow jittered resync (``--interval``, default 10 min);
+* at start the initial listing queues every policy, nearest planned change first;
+* nothing polls: with nothing changing, a policy costs one reconcile per resync and no
+  API request (its HPA and forecast come from the watches' caches).
 
-Two in-memory indexes (filled before any handler runs; kopf guarantees that) also
-give the conflict check — which policies target one HPA — without API calls.
+Indexes (kopf fills them before any handler runs, so a policy is never judged against
+a half-listed cache): policies by target HPA (the conflict check) and by ConfigMap, the
+labelled forecast ConfigMaps' data, and every watched HPA, read into ``HpaState``.
 
-kopf itself runs standalone (no kopf peering). Several replicas are safe with
-``--leader-elect`` (controller/leader.py): only the Lease holder starts kopf at all.
+kopf's own finalizer and progress annotations are not used: the operator adds its
+finalizer only before it first raises a floor (reconcile.py), so a policy that never
+raised one can always be deleted, even with the operator gone.
 """
 
 from __future__ import annotations
@@ -22,29 +31,38 @@ from typing import Any
 
 import kopf
 
-from floorcast.controller.reconcile import Runtime, reconcile
+from floorcast.controller.reconcile import Runtime
 from floorcast.controller.settings import FORECAST_LABEL
+from floorcast.kube.hpa import fingerprint, hpa_from_body
 from floorcast.kube.policies import GROUP, PLURAL, VERSION
 
 log = logging.getLogger("floorcast.operator")
 _RESOURCE = (GROUP, VERSION, PLURAL)
+_HPA = ("autoscaling", "v2", "horizontalpodautoscalers")
 
 
-def _lookups(by_target: kopf.Index, configmaps: kopf.Index) -> dict[str, Any]:
-    def targets(ns: str, name: str) -> list[tuple[str, str]]:
-        return list(by_target.get((ns, name), []))
+def _urgency(body: kopf.Body) -> float:
+    """Start-up priority: the epoch second of the policy's next planned change (a
+    policy with none recorded — new, or never planned — goes first)."""
+    import pandas as pd
 
-    def cms(ns: str, name: str) -> tuple[dict[str, str], str] | None:
-        for value in configmaps.get((ns, name), []):
-            return value
-        return None
+    at = ((body.get("status") or {}).get("nextChange") or {}).get("at")
+    try:
+        return pd.Timestamp(at).timestamp() if isinstance(at, str) else 0.0
+    except ValueError:
+        return 0.0
 
-    return {"targets": targets, "configmaps": cms}
+
+def _inputs(body: kopf.Body) -> tuple[Any, ...]:
+    """What in a policy's own object is an input: not its status (our own writes
+    echo back as events and must not wake it again)."""
+    meta = body.get("metadata") or {}
+    return (meta.get("generation"), meta.get("deletionTimestamp"),
+            tuple(meta.get("finalizers") or ()))  # fmt: skip
 
 
 def register(registry: kopf.OperatorRegistry, rt: Runtime) -> None:
-    """Register every handler with settings known only at run time (the timer interval)."""
-    s = rt.settings
+    """Register the indexes and event handlers; they only record and queue."""
 
     @kopf.index(*_RESOURCE, id="fsp_by_target", registry=registry)
     def fsp_by_target(namespace: str, name: str, spec: kopf.Spec, meta: kopf.Meta,
@@ -65,59 +83,42 @@ def register(registry: kopf.OperatorRegistry, rt: Runtime) -> None:
         data = dict(body.get("data") or {})
         return {(namespace, name): (data, body.get("metadata", {}).get("resourceVersion"))}
 
-    def run(body: kopf.Body, fsp_by_target: kopf.Index, forecast_configmaps: kopf.Index,
-            deleting: bool = False) -> None:  # fmt: skip
-        reconcile(rt, body, deleting=deleting, **_lookups(fsp_by_target, forecast_configmaps))
+    @kopf.index(*_HPA, id="hpas", registry=registry)
+    def hpas(namespace: str, name: str, body: kopf.Body, **_: Any) -> dict[Any, Any]:
+        return {(namespace, name): hpa_from_body(body)}
 
-    @kopf.on.resume(*_RESOURCE, id="reconcile", registry=registry)
-    @kopf.on.create(*_RESOURCE, id="reconcile", registry=registry)
-    @kopf.on.update(*_RESOURCE, id="reconcile", registry=registry)
-    def on_change(body: kopf.Body, fsp_by_target: kopf.Index, forecast_configmaps: kopf.Index,
-                  **_: Any) -> None:  # fmt: skip
-        try:
-            run(body, fsp_by_target, forecast_configmaps)
-        except Exception as e:
-            raise kopf.TemporaryError(f"reconcile failed: {e}", delay=s.interval_seconds) from e
-
-    @kopf.timer(*_RESOURCE, id="timer", interval=s.interval_seconds, registry=registry)
-    def on_timer(body: kopf.Body, fsp_by_target: kopf.Index, forecast_configmaps: kopf.Index,
-                 meta: kopf.Meta, **_: Any) -> None:  # fmt: skip
-        if meta.get("deletionTimestamp"):
+    @kopf.on.event(*_RESOURCE, id="policy", registry=registry)
+    def on_policy(event: dict[str, Any], namespace: str, name: str, body: kopf.Body,
+                  fsp_by_target: kopf.Index, forecast_configmaps: kopf.Index,
+                  hpas: kopf.Index, **_: Any) -> None:  # fmt: skip
+        rt.caches.bind(fsp_by_target, forecast_configmaps, hpas)
+        key, kind = (namespace, name), event.get("type")
+        if kind == "DELETED":
+            rt.caches.gone(key, body)
+            rt.queue.add(key)  # a last, deleting reconcile (workers.py)
             return
-        try:
-            run(body, fsp_by_target, forecast_configmaps)
-        except Exception as e:  # the next tick tries again; never crash the timer
-            log.warning("%s/%s: reconcile failed: %s", meta.get("namespace"), meta.get("name"), e)
-
-    @kopf.on.delete(*_RESOURCE, id="restore", registry=registry)
-    def on_delete(body: kopf.Body, fsp_by_target: kopf.Index, forecast_configmaps: kopf.Index,
-                  **_: Any) -> None:  # fmt: skip
-        try:
-            run(body, fsp_by_target, forecast_configmaps, deleting=True)
-        except Exception as e:  # keep the finalizer until the baseline is back
-            raise kopf.TemporaryError(f"restore failed: {e}", delay=5) from e
+        changed = rt.caches.remember(key, body, _inputs(body))
+        if kind is None:  # the initial listing (start-up, or a re-list)
+            rt.queue.add(key, priority=_urgency(body))
+        elif changed:
+            rt.queue.add(key)
 
     @kopf.on.event("", "v1", "configmaps", labels={FORECAST_LABEL: "true"},
                    id="forecast_changed", registry=registry)  # fmt: skip
     def on_forecast(event: dict[str, Any], namespace: str, name: str,
-                    fsp_by_configmap: kopf.Index, fsp_by_target: kopf.Index,
-                    forecast_configmaps: kopf.Index, **_: Any) -> None:  # fmt: skip
-        if event.get("type") not in ("ADDED", "MODIFIED", "DELETED"):
-            return  # the initial listing: resume handlers already reconcile everything
-        from kubernetes import client as k8s
-        from kubernetes.client.rest import ApiException
-
-        api = k8s.CustomObjectsApi(rt.api)
+                    fsp_by_configmap: kopf.Index, **_: Any) -> None:  # fmt: skip
+        if event.get("type") is None:
+            return  # the initial listing: the policies' own listing queues them
         for policy in list(fsp_by_configmap.get((namespace, name), [])):
-            try:
-                body = api.get_namespaced_custom_object(GROUP, VERSION, namespace, PLURAL,
-                                                        policy)  # fmt: skip
-                if body.get("metadata", {}).get("deletionTimestamp"):
-                    continue
-                run(body, fsp_by_target, forecast_configmaps)
-            except ApiException as e:
-                if e.status != 404:
-                    log.warning("%s/%s: reconcile on forecast change failed: %s",
-                                namespace, policy, e)  # fmt: skip
-            except Exception as e:
-                log.warning("%s/%s: reconcile on forecast change failed: %s", namespace, policy, e)
+            rt.queue.add((namespace, policy))
+
+    @kopf.on.event(*_HPA, id="hpa_changed", registry=registry)
+    def on_hpa(event: dict[str, Any], namespace: str, name: str, body: kopf.Body,
+               fsp_by_target: kopf.Index, **_: Any) -> None:  # fmt: skip
+        gone = event.get("type") == "DELETED"
+        state = hpa_from_body(body)
+        new = ("deleted",) if gone else fingerprint(state)
+        if not rt.caches.hpa_changed((namespace, name), new) or event.get("type") is None:
+            return  # status only (or the initial listing): nothing to decide anew
+        for _, policy in list(fsp_by_target.get((namespace, name), [])):
+            rt.queue.add((namespace, policy))

@@ -43,4 +43,6 @@ def serve(port: int) -> None:
     start_http_server(port)
 
 
+QUEUE_DEPTH = Gauge("floorcast_queue_depth", "Policies queued for a reconcile (due or not)")
+RECONCILES = Counter("floorcast_reconciles_total", "Reconciles run by the workers")
 LEADER = Gauge("floorcast_leader", "1 while this replica acts (holds the Lease), 0 on standby")

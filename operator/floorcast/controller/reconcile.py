@@ -33,8 +33,10 @@ from floorcast.controller import metrics
 from floorcast.controller.capacity import per_replica_from_hpa
 from floorcast.controller.decide import conflict_winner
 from floorcast.controller.failsafe import decide_safely, fail_safe
+from floorcast.controller.schedule import Periods, next_wake
 from floorcast.controller.settings import FORECAST_LABEL, Settings
 from floorcast.controller.state import (
+    ANN_POLICY,
     FORECAST_INVALID,
     FORECAST_MISSING,
     Decision,
@@ -43,7 +45,10 @@ from floorcast.controller.state import (
     LiveMemory,
     Observed,
 )
+from floorcast.controller.watched import Caches
+from floorcast.controller.workqueue import WorkQueue
 from floorcast.kube import policies
+from floorcast.kube.finalizer import FINALIZER, set_finalizer
 from floorcast.kube.hpa import Conflict, patch_hpa, read_hpa
 from floorcast.kube.workload import read_pod_spec
 from floorcast.policy import Policy, PolicyError, parse_policy
@@ -87,6 +92,15 @@ class Runtime:
     written: dict[tuple[str, str], dict[str, Any]] = field(default_factory=dict)
     #: The live correction's EWMA per policy (controller/live.py), between reconciles.
     live: dict[tuple[str, str], LiveMemory] = field(default_factory=dict)
+    #: What wakes policies (controller/workqueue.py, schedule.py) and what the watches
+    #: have shown (controller/watched.py).
+    queue: WorkQueue = field(default_factory=WorkQueue)
+    caches: Caches = field(default_factory=Caches)
+    periods: Periods = field(default_factory=Periods)
+    #: Seconds until each policy's next wake, from its last reconcile (workers.py).
+    wake_in: dict[tuple[str, str], float] = field(default_factory=dict)
+    #: Policies known to carry our finalizer (the watched body may lag our own patch).
+    finalized: set[tuple[str, str]] = field(default_factory=set)
 
     def lock(self, namespace: str, name: str) -> threading.Lock:
         with self._guard:
@@ -97,6 +111,8 @@ class Runtime:
             self._locks.pop((namespace, name), None)
             self.written.pop((namespace, name), None)
             self.live.pop((namespace, name), None)
+            self.wake_in.pop((namespace, name), None)
+            self.finalized.discard((namespace, name))
         metrics.forget(namespace, name)
 
 
@@ -168,6 +184,8 @@ def observe(rt: Runtime, body: Mapping[str, Any], *, deleting: bool,
         conflict = conflict_winner(me, rivals)
     target = pol.spec.target_name if pol else (body.get("spec", {}).get("targetRef") or {}).get(
         "name")  # fmt: skip
+    if hpa is None and target:
+        hpa = rt.caches.hpa(ns, target)  # the watch's copy; None before it is bound
     if hpa is None:
         hpa = (read_hpa(rt.api, ns, target, timeout=rt.settings.api_timeout_seconds)
                if target else HpaState(exists=False))  # fmt: skip
@@ -208,10 +226,14 @@ def _read_capacity(rt: Runtime, ns: str, hpa: HpaState) -> tuple[float | None, s
 
 def reconcile(rt: Runtime, body: Mapping[str, Any], *, deleting: bool = False,
               configmaps: ConfigMapLookup | None = None,
-              targets: TargetLookup | None = None) -> Decision:  # fmt: skip
+              targets: TargetLookup | None = None, gone: bool = False) -> Decision:  # fmt: skip
     """Reconcile one policy. Raises only when the HPA could not be made safe (restored
     or confirmed not ours): the caller retries later. Otherwise a failure has already
-    been turned into a restored baseline and a ``ReconcileFailed`` status."""
+    been turned into a restored baseline and a ``ReconcileFailed`` status.
+
+    ``deleting``: the policy is being deleted; once the baseline is back our finalizer
+    is released. ``gone``: it has already left the API (deleted without our finalizer,
+    or with it removed by hand); the restore still runs, from the HPA's annotations."""
     meta = body.get("metadata", {})
     ns, name = meta["namespace"], meta["name"]
     started = time.monotonic()
@@ -227,6 +249,9 @@ def reconcile(rt: Runtime, body: Mapping[str, Any], *, deleting: bool = False,
                     raise
                 metrics.ERRORS.labels(type(e).__name__).inc()
         log.info("%s", d.log)
+        if deleting and not gone:
+            set_finalizer(rt.api, ns, name, present=False,
+                          timeout=rt.settings.api_timeout_seconds)  # fmt: skip
         if deleting:
             rt.forget(ns, name)
         else:
@@ -250,22 +275,28 @@ def _reconcile_locked(rt: Runtime, body: Mapping[str, Any], deleting: bool,
     meta = body.get("metadata", {})
     ns, name = meta["namespace"], meta["name"]
     forecast = None
+    hpa = None
     for attempt in range(CONFLICT_RETRIES + 1):
         obs = observe(rt, body, deleting=deleting, configmaps=configmaps,
-                      targets=targets, forecast=forecast)  # fmt: skip
+                      targets=targets, forecast=forecast, hpa=hpa)  # fmt: skip
         forecast = obs.forecast  # a retry after 409 re-reads the HPA only
         d = decide_safely(obs)
         if d.hpa_patch is None:
             break
         try:
+            if not deleting and d.hpa_patch.annotations.get(ANN_POLICY):
+                _hold_finalizer(rt, body)  # before the first raise: delete must restore
             _patch(rt, ns, name, _target(body), d)
         except Conflict:
             metrics.ERRORS.labels("Conflict").inc()
             if attempt == CONFLICT_RETRIES:
                 raise
+            # The watch's copy may lag behind the write that beat us: read it.
+            hpa = read_hpa(rt.api, ns, _target(body), timeout=rt.settings.api_timeout_seconds)
             continue
         break
     _report(rt, ns, name, meta.get("uid"), d, obs.status)
+    rt.wake_in[(ns, name)] = next_wake(obs, d, rt.periods)
     # The decision that was carried out moves the live correction's EWMA on (a 409
     # retry re-decided from the old memory, so no observation counts twice).
     if d.live_memory is None:
@@ -273,6 +304,19 @@ def _reconcile_locked(rt: Runtime, body: Mapping[str, Any], deleting: bool,
     else:
         rt.live[(ns, name)] = d.live_memory
     return d
+
+
+def _hold_finalizer(rt: Runtime, body: Mapping[str, Any]) -> None:
+    """Our finalizer on the policy, so a delete waits until the baseline is back.
+    Added only before a floor is first raised: a policy that never raised one has
+    nothing to restore and is never stuck on a missing operator."""
+    meta = body.get("metadata", {})
+    key = (meta["namespace"], meta["name"])
+    if key in rt.finalized or FINALIZER in (meta.get("finalizers") or ()):
+        rt.finalized.add(key)
+        return
+    set_finalizer(rt.api, key[0], key[1], present=True, timeout=rt.settings.api_timeout_seconds)
+    rt.finalized.add(key)
 
 
 def _target(body: Mapping[str, Any]) -> str:

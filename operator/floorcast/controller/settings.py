@@ -1,8 +1,9 @@
 """Operator settings in one place, so `floorcast run`, the handlers and tests agree.
 
-Defaults are the safe ones: a 30 s timer, no URL host allowed (a policy's URL must be
-allowed explicitly, or the operator could be used to probe the cluster network), and
-the same 1 MiB cap on a forecast whether it comes from a ConfigMap or a URL.
+Defaults are the safe ones: a 10-minute safety-net resync (policies wake at their
+planned changes and on input changes, controller/schedule.py), no URL host allowed (a
+policy's URL must be allowed explicitly, or the operator could be used to probe the
+cluster network), and the same 1 MiB cap on a forecast whether it comes from a ConfigMap or a URL.
 """
 
 from __future__ import annotations
@@ -64,7 +65,14 @@ def parse_url_rule(text: str) -> UrlRule:
 @dataclass(frozen=True)
 class Settings:
     namespaces: tuple[str, ...] = ()  # empty: all namespaces
-    interval_seconds: float = 30.0
+    #: The safety-net resync: the longest a policy goes without a reconcile when
+    #: nothing wakes it (controller/schedule.py).
+    interval_seconds: float = 600.0
+    #: How often a policy that observes load (live correction) is reconciled, and how
+    #: often a forecast no watch reports (a URL, an unlabelled ConfigMap) is read.
+    observe_interval_seconds: float = 30.0
+    #: Reconcile worker threads (controller/workers.py).
+    workers: int = 4
     allowed_url_hosts: tuple[str, ...] = ()
     dry_run: bool = False
     metrics_port: int | None = 8080

@@ -8,6 +8,10 @@ as a precondition: if someone edited the HPA since we read it, the API server an
 
 from __future__ import annotations
 
+import json
+from collections.abc import Mapping
+from typing import Any
+
 import pandas as pd
 from kubernetes import client as k8s
 from kubernetes.client.rest import ApiException
@@ -23,54 +27,97 @@ class Conflict(Exception):
 
 
 def read_hpa(api: k8s.ApiClient, namespace: str, name: str, *, timeout: float) -> HpaState:
+    """A GET, for when the operator's HPA cache has not seen this HPA (or a 409 says
+    the cached copy is behind)."""
     try:
-        h = k8s.AutoscalingV2Api(api).read_namespaced_horizontal_pod_autoscaler(
-            name, namespace, _request_timeout=timeout
+        resp = k8s.AutoscalingV2Api(api).read_namespaced_horizontal_pod_autoscaler(
+            name, namespace, _request_timeout=timeout, _preload_content=False
         )
     except ApiException as e:
         if e.status == 404:
             return HpaState(exists=False)
         raise
-    ref = h.spec.scale_target_ref
-    util, util_error = _cpu_current(h)
-    st = h.status
-    last = st.last_scale_time if st is not None else None
+    return hpa_from_body(json.loads(resp.data))
+
+
+def hpa_from_body(body: Mapping[str, Any]) -> HpaState:
+    """An autoscaling/v2 HPA as the API serves it (a GET's JSON or a watch event's
+    object), read into what the decision needs. Shapes the API server would never send
+    (a kind of bad input all the same) read as "no value", not as an exception."""
+    meta, spec, st = (_m(body.get(k)) for k in ("metadata", "spec", "status"))
+    ref = _m(spec.get("scaleTargetRef"))
+    util, util_error = _cpu_current(st)
+    last = st.get("lastScaleTime")
+    mn = spec.get("minReplicas")
     return HpaState(
         exists=True,
-        min_replicas=h.spec.min_replicas if h.spec.min_replicas is not None else 1,
-        max_replicas=h.spec.max_replicas,
-        annotations=dict(h.metadata.annotations or {}),
-        resource_version=h.metadata.resource_version,
-        cpu_target_utilization=_cpu_target(h),
-        scale_target=(ref.api_version or "", ref.kind, ref.name) if ref else None,
+        min_replicas=mn if isinstance(mn, int) else 1,
+        max_replicas=_int(spec.get("maxReplicas")) or 1,
+        annotations={str(k): str(v) for k, v in _m(meta.get("annotations")).items()},
+        resource_version=meta.get("resourceVersion"),
+        cpu_target_utilization=_cpu_target(spec),
+        scale_target=_scale_target(ref),
         cpu_current_utilization=util,
         cpu_current_error=util_error,
-        current_replicas=st.current_replicas if st is not None else None,
-        last_scale_time=pd.Timestamp(last).tz_convert("UTC") if last is not None else None,
+        current_replicas=_int(st.get("currentReplicas")),
+        last_scale_time=_time(last),
     )
 
 
-def _cpu_target(h: k8s.V2HorizontalPodAutoscaler) -> int | None:
+def _scale_target(ref: Mapping[str, Any]) -> tuple[str, str, str] | None:
+    if not ref.get("name"):
+        return None
+    return str(ref.get("apiVersion") or ""), str(ref.get("kind")), str(ref.get("name"))
+
+
+def _m(v: Any) -> Mapping[str, Any]:
+    return v if isinstance(v, Mapping) else {}
+
+
+def _int(v: Any) -> int | None:
+    return v if isinstance(v, int) and not isinstance(v, bool) else None
+
+
+def _time(v: Any) -> pd.Timestamp | None:
+    if not isinstance(v, str):
+        return None
+    try:
+        return pd.Timestamp(v).tz_convert("UTC")
+    except (ValueError, TypeError):
+        return None
+
+
+def _cpu_target(spec: Mapping[str, Any]) -> int | None:
     """The Resource metric on cpu with a Utilization target, if the HPA has one."""
-    for m in h.spec.metrics or []:
-        r = m.resource if m.type == "Resource" else None
-        if r is not None and r.name == "cpu" and r.target.type == "Utilization":
-            return r.target.average_utilization
+    for m in spec.get("metrics") or []:
+        r = _m(_m(m).get("resource")) if _m(m).get("type") == "Resource" else {}
+        target = _m(r.get("target"))
+        if r.get("name") == "cpu" and target.get("type") == "Utilization":
+            return _int(target.get("averageUtilization"))
     return None
 
 
-def _cpu_current(h: k8s.V2HorizontalPodAutoscaler) -> tuple[int | None, str | None]:
+def _cpu_current(st: Mapping[str, Any]) -> tuple[int | None, str | None]:
     """status.currentMetrics' CPU Resource averageUtilization, for the live correction;
     several CPU series are an error (which one is the load?), none is no value."""
-    found = [m.resource.current.average_utilization
-             for m in (h.status.current_metrics or [] if h.status else [])
-             if m.type == "Resource" and m.resource is not None and m.resource.name == "cpu"
-             and m.resource.current is not None
-             and m.resource.current.average_utilization is not None]  # fmt: skip
+    found = []
+    for m in st.get("currentMetrics") or []:
+        r = _m(_m(m).get("resource")) if _m(m).get("type") == "Resource" else {}
+        util = _int(_m(r.get("current")).get("averageUtilization"))
+        if r.get("name") == "cpu" and util is not None:
+            found.append(util)
     if len(found) > 1:
         return None, (f"the HPA reports {len(found)} CPU utilization series in "
                       "status.currentMetrics; expected one")  # fmt: skip
     return (found[0] if found else None), None
+
+
+def fingerprint(h: HpaState) -> tuple[Any, ...]:
+    """What in an HPA is an input to the decision, as opposed to its status: a change
+    here wakes the policies on it at once; a status change only feeds observations."""
+    ours = tuple(sorted((k, v) for k, v in h.annotations.items() if k.startswith("floorcast.dev/")))
+    return (h.exists, h.min_replicas, h.max_replicas, ours, h.cpu_target_utilization,
+            h.scale_target)  # fmt: skip
 
 
 def patch_hpa(

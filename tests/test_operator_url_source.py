@@ -18,7 +18,7 @@ from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 import pytest
 
 from floorcast.controller.settings import Settings
-from floorcast.sources.http import UrlCache, forecast_from_url
+from floorcast.sources.http import MAX_FRESH_SECONDS, UrlCache, forecast_from_url, max_age
 
 
 def forecast(value: float) -> bytes:
@@ -37,6 +37,7 @@ class Served:
     status: int = 200
     location: str | None = None
     trickle: float = 0.0  # seconds between bytes of the body (0: all at once)
+    cache_control: str | None = None
     seen: list[tuple[str, str | None, str | None]] = field(default_factory=list)
 
 
@@ -56,7 +57,8 @@ def server() -> Iterator[tuple[str, Served]]:
                 return
             self.send_response(served.status)
             for name, value in (("ETag", served.etag), ("Last-Modified", served.last_modified),
-                                ("Location", served.location)):  # fmt: skip
+                                ("Location", served.location),
+                                ("Cache-Control", served.cache_control)):  # fmt: skip
                 if value:
                     self.send_header(name, value)
             self.send_header("Content-Length", str(len(served.body)))
@@ -96,6 +98,22 @@ def test_unchanged_forecast_is_not_downloaded_again(server) -> None:
     again = forecast_from_url(f"{base}/f.json", SETTINGS, cache)
     assert again is first  # the 304 reused the parsed forecast
     assert served.seen == [("/f.json", None, None), ("/f.json", '"v1"', None)]
+
+
+def test_cache_control_max_age_skips_the_request_while_fresh(server) -> None:
+    # RFC 9111 §5.2.2.1: a response with max-age=N is fresh for N seconds.
+    base, served = server
+    served.cache_control = "public, max-age=300"
+    cache = UrlCache()
+    first = forecast_from_url(f"{base}/f.json", SETTINGS, cache)
+    assert forecast_from_url(f"{base}/f.json", SETTINGS, cache) is first
+    assert len(served.seen) == 1  # no second request while fresh
+    assert (max_age("no-cache, max-age=60"), max_age("max-age=x"), max_age(None)) == (0, 0, 0)
+    assert max_age("max-age=86400") == MAX_FRESH_SECONDS
+    served.cache_control = None
+    other = forecast_from_url(f"{base}/g.json", SETTINGS, cache)  # no header: revalidate
+    assert forecast_from_url(f"{base}/g.json", SETTINGS, cache) is other
+    assert served.seen[-1] == ("/g.json", '"v1"', None)
 
 
 def test_a_new_version_replaces_the_cached_one(server) -> None:

@@ -23,7 +23,7 @@ import ssl
 import time
 import urllib.error
 import urllib.request
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 from urllib.parse import urlsplit
 
@@ -60,6 +60,32 @@ class _Fetched:
     last_modified: str | None
     digest: str
     state: ForecastState
+    #: time.monotonic() until which the server said the body stays fresh
+    #: (``Cache-Control: max-age``); before then no request is sent at all.
+    fresh_until: float = 0.0
+
+
+#: The longest ``max-age`` honoured: a server's promise of a day is not a reason to
+#: miss a new forecast for a day (common practice, no source).
+MAX_FRESH_SECONDS = 3600.0
+
+
+def max_age(header: str | None) -> float:
+    """Seconds from ``Cache-Control`` (RFC 9111 §5.2.2.1 max-age; no-cache / no-store
+    mean 0), capped at MAX_FRESH_SECONDS; no header or a bad value: 0 (revalidate)."""
+    if not header:
+        return 0.0
+    seconds = 0.0
+    for part in header.lower().split(","):
+        name, _, value = part.strip().partition("=")
+        if name in ("no-cache", "no-store"):
+            return 0.0
+        if name == "max-age":
+            try:
+                seconds = float(int(value.strip().strip('"')))
+            except ValueError:
+                return 0.0
+    return max(0.0, min(seconds, MAX_FRESH_SECONDS))
 
 
 class UrlCache:
@@ -95,6 +121,8 @@ def forecast_from_url(url: str, settings: Settings, cache: UrlCache | None = Non
         return ForecastState(reason=URL_NOT_ALLOWED, message=f"{shown} {refused}; not fetched")
     cap = settings.max_forecast_bytes
     known = cache.get(url) if cache is not None else None
+    if known is not None and time.monotonic() < known.fresh_until:
+        return known.state  # still fresh by the server's own Cache-Control
     request = urllib.request.Request(url)
     if known is not None and known.etag:
         request.add_header("If-None-Match", known.etag)
@@ -105,11 +133,15 @@ def forecast_from_url(url: str, settings: Settings, cache: UrlCache | None = Non
         with _opener(settings.ca_bundle).open(request, timeout=limit) as resp:
             body = _read(resp, cap + 1, time.monotonic() + limit)
             etag, modified = resp.headers.get("ETag"), resp.headers.get("Last-Modified")
+            fresh = time.monotonic() + max_age(resp.headers.get("Cache-Control"))
     except _TooSlow:
         return ForecastState(reason=FORECAST_MISSING,
                              message=f"{shown}: body not received within {limit:g}s")  # fmt: skip
     except urllib.error.HTTPError as e:
         if e.code == 304 and known is not None:
+            ttl = max_age(e.headers.get("Cache-Control") if e.headers else None)
+            if cache is not None and ttl:
+                cache.put(url, replace(known, fresh_until=time.monotonic() + ttl))
             return known.state
         return ForecastState(reason=FORECAST_MISSING, message=f"{shown}: HTTP {e.code}")
     except (urllib.error.URLError, TimeoutError, OSError) as e:
@@ -123,7 +155,7 @@ def forecast_from_url(url: str, settings: Settings, cache: UrlCache | None = Non
     else:
         state = _parse(body, shown, cap)
     if cache is not None and state.series is not None:
-        cache.put(url, _Fetched(etag, modified, digest, state))
+        cache.put(url, _Fetched(etag, modified, digest, state, fresh))
     return state
 
 

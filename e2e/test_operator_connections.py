@@ -7,7 +7,7 @@ the operator's established TCP connections to the API server are sampled from /p
 (proc(5): /proc/PID/fd links "socket:[INODE]", /proc/PID/net/tcp rows carry the remote
 address, state 01 = ESTABLISHED, and the inode) for the whole flood.
 
-The bound: kopf's pool (two watch streams + ``--max-api-connections``) plus the sync
+The bound: kopf's pool (three watch streams + ``--max-api-connections``) plus the sync
 client's threads (8 handler workers, app.py) and a little slack; every policy must
 still become Ready, so the cap cannot starve kopf's patches behind its watches.
 """
@@ -113,7 +113,7 @@ def test_start_up_flood_stays_within_the_connection_limit(env: Env, control_plan
     finally:
         stop.set()
         sampler.join(5)
-    kopf_pool = connection_limit(Settings(namespaces=(env.namespace,)))  # 2 watches + 16
+    kopf_pool = connection_limit(Settings(namespaces=(env.namespace,)))  # 3 watches + 16
     bound = kopf_pool + SYNC_CLIENT_THREADS + 2
     assert bound < POLICIES  # or this test could not tell bounded from unbounded
     assert 0 < peak[0] <= bound, f"{peak[0]} connections to the API server, bound {bound}"

@@ -19,10 +19,11 @@ from floorcast.controller.connections import bounded_session, connection_limit
 from floorcast.controller.settings import Settings
 
 
-def test_limit_counts_two_watch_streams_per_namespace() -> None:
-    assert connection_limit(Settings()) == 2 + 16  # cluster-wide: one watch per resource
-    assert connection_limit(Settings(namespaces=("a", "b", "c"))) == 6 + 16
-    assert connection_limit(Settings(namespaces=("a",), max_api_connections=4)) == 2 + 4
+def test_limit_counts_three_watch_streams_per_namespace() -> None:
+    # Policies, forecast ConfigMaps and HPAs (controller/handlers.py).
+    assert connection_limit(Settings()) == 3 + 16  # cluster-wide: one watch per resource
+    assert connection_limit(Settings(namespaces=("a", "b", "c"))) == 9 + 16
+    assert connection_limit(Settings(namespaces=("a",), max_api_connections=4)) == 3 + 4
 
 
 def test_bounded_session_carries_the_credentials_and_the_limit() -> None:
@@ -57,9 +58,10 @@ def test_run_flags_reach_settings(started: list[Settings], capsys: pytest.Captur
     assert code == 0, err
     (s,) = started
     assert s.namespaces == ("shop", "ops") and s.interval_seconds == 60 and s.dry_run
+    assert s.observe_interval_seconds == 30  # the default
     assert s.allowed_url_hosts == ("forecasts.shop.internal",)
     assert s.max_api_connections == 4 and s.metrics_port is None
-    assert connection_limit(s) == 4 + 4
+    assert connection_limit(s) == 6 + 4  # 3 watches x 2 namespaces + 4
 
 
 @pytest.mark.parametrize(

@@ -22,8 +22,8 @@ import kopf
 
 from floorcast.controller.settings import Settings
 
-#: Resources kopf watches (see handlers.py): ForecastScalingPolicies and ConfigMaps.
-WATCHED_RESOURCES = 2
+#: Resources kopf watches (see handlers.py): ForecastScalingPolicies, ConfigMaps, HPAs.
+WATCHED_RESOURCES = 3
 
 
 def connection_limit(settings: Settings) -> int:

@@ -76,6 +76,7 @@ def test_status_has_the_design_fields(schema):
     assert set(status) == {
         "floor", "baseline", "proposedFloor", "nextChange", "forecastGenerated",
         "lastAppliedTime", "observedGeneration", "conditions", "liveCorrection",
+        "accuracy", "addedReplicaHours",
     }  # fmt: skip
     assert set(status["liveCorrection"]["properties"]) == {"factor", "reason", "message"}
     cond = status["conditions"]["items"]
@@ -129,7 +130,8 @@ def test_every_string_pattern_is_the_one_policy_py_applies(schema):
     assert {p for p, v in got.items() if v == policy._DNS_SUBDOMAIN.pattern} == names
     assert got["forecast.configMapRef.key"] == policy._CONFIGMAP_KEY.pattern
     durations = {p for p, v in got.items() if v == DURATION_PATTERN}
-    assert durations == {"leadTime", "holdTime", "forecast.maxAge", "liveCorrection.halfLife"}
+    assert durations == {"leadTime", "holdTime", "forecast.maxAge", "liveCorrection.halfLife",
+                         "accuracyGuard.window", "accuracyGuard.recoverAfter"}
     assert set(got) == names | durations | {"forecast.configMapRef.key", "forecast.url"}
     # What the name pattern refuses, policy.py refuses too, with the field's path.
     for bad in ("Web_1", "web.", "-web", "fc/x"):
@@ -173,6 +175,8 @@ def test_string_lengths_are_the_crd_max_lengths(schema):
             "holdTime",
             "forecast.maxAge",
             "liveCorrection.halfLife",
+            "accuracyGuard.window",
+            "accuracyGuard.recoverAfter",
             "plannedEvents[].start",
             "plannedEvents[].end",
         }

@@ -259,6 +259,8 @@ def test_spec_defaults_match_design() -> None:
         "useUpperBound": True,
         "mode": "DryRun",
         "liveCorrection": {"enabled": False, "halfLife": "30m", "min": 0.5, "max": 2.0},
+        "accuracyGuard": {"enabled": False, "maxError": 0.5, "maxExceedance": 0.5,
+                          "window": "1h", "recoverAfter": "30m", "action": "Baseline"},
     }
 
 

@@ -51,6 +51,7 @@ from floorcast.policy_fields import (  # noqa: F401  (MAX_* and PolicyError re-e
     _Reader,
     _Rule,
 )
+from floorcast.policy_guard import AccuracyGuard, guard_defaults, read_guard
 
 API_VERSION = "floorcast.dev/v1alpha1"
 KIND = "ForecastScalingPolicy"
@@ -83,7 +84,7 @@ _METADATA_FIELDS = (
 _SPEC_FIELDS = (
     "targetRef", "forecast", "capacity", "leadTime", "holdTime", "headroom",
     "useUpperBound", "minReplicas", "maxReplicas", "mode", "plannedEvents", "liveCorrection",
-    "serviceLevel",
+    "serviceLevel", "accuracyGuard",
 )  # fmt: skip
 _DNS_SUBDOMAIN = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$")
 _DNS_LABEL = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?$")
@@ -147,6 +148,7 @@ class PolicySpec:
     mode: Mode = DEFAULT_MODE
     planned_events: tuple[PlannedEvent, ...] = ()
     live_correction: LiveCorrection = LiveCorrection()
+    accuracy_guard: AccuracyGuard = AccuracyGuard()  # noqa: RUF009 (frozen)
 
 
 @dataclass(frozen=True)
@@ -175,6 +177,7 @@ def spec_defaults() -> dict[str, Any]:
             "min": DEFAULT_CORRECTION_MIN,
             "max": DEFAULT_CORRECTION_MAX,
         },
+        "accuracyGuard": guard_defaults(),
     }
 
 
@@ -215,6 +218,7 @@ def parse_spec(spec: _M, *, source: str = "policy") -> PolicySpec:
         mode=cast(Mode, mode),
         planned_events=_events(r, s.get("plannedEvents"), "spec.plannedEvents"),
         live_correction=_live_correction(r, s),
+        accuracy_guard=read_guard(r, s),
     )
 
 

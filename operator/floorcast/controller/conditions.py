@@ -15,13 +15,14 @@ from dataclasses import dataclass
 from typing import Any
 
 READY, FORECAST_AVAILABLE, APPLIED = "Ready", "ForecastAvailable", "Applied"
-ORDER = (READY, FORECAST_AVAILABLE, APPLIED)
+FORECAST_ACCURATE = "ForecastAccurate"
+ORDER = (READY, FORECAST_AVAILABLE, FORECAST_ACCURATE, APPLIED)
 
 
 @dataclass(frozen=True)
 class Condition:
     type: str
-    status: bool
+    status: bool | None  # None: "Unknown"
     reason: str
     message: str
 
@@ -37,7 +38,7 @@ def render(
     old = {c.get("type"): c for c in previous or [] if isinstance(c, Mapping)}
     out: list[dict[str, Any]] = []
     for c in sorted(wanted, key=lambda c: ORDER.index(c.type) if c.type in ORDER else 99):
-        status = "True" if c.status else "False"
+        status = "Unknown" if c.status is None else "True" if c.status else "False"
         before = old.get(c.type)
         since = now_iso
         if before is not None and before.get("status") == status:

@@ -19,7 +19,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
-from floorcast.controller import live
+from floorcast.controller import accuracy, live
 from floorcast.controller.checks import MAX_CLOCK_SKEW, forecast_problem  # noqa: F401
 from floorcast.controller.checks import peak as peak_at
 from floorcast.controller.conditions import APPLIED, FORECAST_AVAILABLE, READY, Condition, render
@@ -195,9 +195,16 @@ def decide(obs: Observed) -> Decision:
         )
 
     corrected = live.apply(obs, plan)  # the plan's floor unless liveCorrection acts
-    floor = corrected.floor
+    guarded = accuracy.apply(obs, plan, corrected)  # the baseline while the guard trips
+    floor = guarded.floor
+    events.extend(guarded.events)
     if corrected.status is not None:
         extra["liveCorrection"] = corrected.status
+    if guarded.status is not None:
+        extra["accuracy"] = guarded.status
+    if guarded.added_hours is not None:
+        extra["addedReplicaHours"] = accuracy.published_cost(prev, guarded.added_hours)
+    fc_acc = [guarded.condition] if guarded.condition is not None else []
     nxt = plan.next_change
     if nxt is not None:
         extra["nextChange"] = {"at": iso(nxt.at), "replicas": nxt.new}
@@ -227,6 +234,7 @@ def decide(obs: Observed) -> Decision:
         conds = [
             _c(READY, True, DRY_RUN, f"{why}; proposed floor {floor}"),
             fc_ok,
+            *fc_acc,
             _c(APPLIED, False, DRY_RUN, f"{why}: no write to the HPA"),
         ]
         return _finish(
@@ -240,6 +248,7 @@ def decide(obs: Observed) -> Decision:
             floor=floor,
             age=age,
             corrected=corrected,
+            guarded=guarded,
         )
 
     extra["floor"] = floor
@@ -265,7 +274,8 @@ def decide(obs: Observed) -> Decision:
             )
         )
     msg = f"floor {floor} (baseline {own.baseline}) in force"
-    conds = [_c(READY, True, FLOOR_APPLIED, msg), fc_ok, _c(APPLIED, True, FLOOR_APPLIED, msg)]
+    conds = [_c(READY, True, FLOOR_APPLIED, msg), fc_ok, *fc_acc,
+             _c(APPLIED, True, FLOOR_APPLIED, msg)]
     return _finish(
         obs,
         patch,
@@ -277,6 +287,7 @@ def decide(obs: Observed) -> Decision:
         floor=floor,
         age=age,
         corrected=corrected,
+        guarded=guarded,
     )
 
 
@@ -307,6 +318,7 @@ def _finish(
     floor: int | None = None,
     age: float | None = None,
     corrected: live.Outcome | None = None,
+    guarded: accuracy.Result | None = None,
 ) -> Decision:
     prev = obs.status or {}
     baseline = own.baseline if own is not None else None
@@ -340,6 +352,9 @@ def _finish(
         live_factor=corrected.factor if corrected is not None else None,
         # No plan this time: the EWMA's memory stays as it was (it ages by time).
         live_memory=corrected.memory if corrected is not None else obs.live,
+        accuracy_error=guarded.error if guarded is not None else None,
+        added_replica_hours=guarded.added_hours if guarded is not None else None,
+        guard_memory=guarded.memory if guarded is not None else obs.guard,
     )
 
 

@@ -92,6 +92,8 @@ class Runtime:
     written: dict[tuple[str, str], dict[str, Any]] = field(default_factory=dict)
     #: The live correction's EWMA per policy (controller/live.py), between reconciles.
     live: dict[tuple[str, str], LiveMemory] = field(default_factory=dict)
+    #: The accuracy guard's and the cost's memory per policy (controller/accuracy.py).
+    guard: dict[tuple[str, str], Any] = field(default_factory=dict)
     #: What wakes policies (controller/workqueue.py, schedule.py) and what the watches
     #: have shown (controller/watched.py).
     queue: WorkQueue = field(default_factory=WorkQueue)
@@ -111,6 +113,7 @@ class Runtime:
             self._locks.pop((namespace, name), None)
             self.written.pop((namespace, name), None)
             self.live.pop((namespace, name), None)
+            self.guard.pop((namespace, name), None)
             self.wake_in.pop((namespace, name), None)
             self.finalized.discard((namespace, name))
         metrics.forget(namespace, name)
@@ -200,7 +203,7 @@ def observe(rt: Runtime, body: Mapping[str, Any], *, deleting: bool,
         generation=meta.get("generation"), policy_error=err,
         operator_dry_run=rt.settings.dry_run, conflict_with=conflict, deleting=deleting,
         per_replica=per_replica, per_replica_error=per_replica_error,
-        live=rt.live.get((ns, name)),
+        live=rt.live.get((ns, name)), guard=rt.guard.get((ns, name)),
     )  # fmt: skip
 
 
@@ -303,6 +306,10 @@ def _reconcile_locked(rt: Runtime, body: Mapping[str, Any], deleting: bool,
         rt.live.pop((ns, name), None)
     else:
         rt.live[(ns, name)] = d.live_memory
+    if d.guard_memory is None:
+        rt.guard.pop((ns, name), None)
+    else:
+        rt.guard[(ns, name)] = d.guard_memory
     return d
 
 

@@ -30,6 +30,8 @@ STATUS_KEYS = (
     "forecastGenerated",
     "lastAppliedTime",
     "liveCorrection",
+    "accuracy",
+    "addedReplicaHours",
     "conditions",
 )
 
@@ -112,6 +114,8 @@ class Observed:
     per_replica: float | None = None
     per_replica_error: str | None = None
     live: LiveMemory | None = None
+    #: The accuracy guard's and the cost's memory (controller/accuracy.py).
+    guard: Any = None
 
 
 @dataclass(frozen=True)
@@ -153,3 +157,8 @@ class Decision:
     #: The live correction's factor in use (None: not correcting) and its memory.
     live_factor: float | None = None
     live_memory: LiveMemory | None = None
+    #: The accuracy guard's WAPE (None: not judged), the floor's added replica-hours
+    #: over the last day, and the memory behind both (controller/accuracy.py).
+    accuracy_error: float | None = None
+    added_replica_hours: float | None = None
+    guard_memory: Any = None

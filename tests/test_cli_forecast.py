@@ -53,7 +53,8 @@ def test_forecast_auto_records_the_choice_and_scores(history, tmp_path, capsys):
     # auto picks the lowest MASE among the methods it could evaluate.
     finite = {m: s["mase"] for m, s in scores.items() if s.get("mase") is not None}
     assert doc["chosen"] == min(finite, key=finite.get)
-    assert out.read_text().startswith("timestamp,value,lower,upper\n")
+    # The default quantile levels follow the band (docs/formats.md, "Quantiles").
+    assert out.read_text().startswith("timestamp,value,lower,upper,q0.5,q0.8,q0.9,q0.95,q0.99\n")
 
 
 def test_batch_folder(tmp_path, capsys):

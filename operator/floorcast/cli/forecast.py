@@ -19,7 +19,7 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
 from rich.table import Table
 
 from floorcast.cli.options import duration
-from floorcast.core.forecasting import METHODS
+from floorcast.core.forecasting import METHODS, band_levels
 from floorcast.core.forecasting.combine import COMBINATION
 from floorcast.core.forecasting.engine import BatchForecast, forecast_batch
 from floorcast.core.forecasting.handover import crossfade
@@ -56,6 +56,20 @@ def parse_quantiles(text: str) -> tuple[float, float]:
     if not 0 < lo < hi < 1:
         raise InputError(f"--quantiles: need 0 < lower < upper < 1, got {text!r}")
     return lo, hi
+
+
+def parse_levels(text: str) -> tuple[float, ...]:
+    """``--levels 0.5,0.9,0.95`` -> the quantile levels written beside the band;
+    ``none`` writes none (docs/formats.md, "Quantiles")."""
+    if text.strip().lower() == "none":
+        return ()
+    if len(text) > 400:
+        raise InputError(f"--levels: expected numbers like 0.5,0.95, got {text[:37]!r}...")
+    try:
+        return band_levels.check_levels([float(x) for x in text.split(",")])
+    except (ValueError, InputError) as e:
+        raise InputError(f"--levels: {e if isinstance(e, InputError) else 'not a number'} "
+                         f"in {text!r}") from None  # fmt: skip
 
 
 def check_horizon(horizon: str, histories: list[Series]) -> None:
@@ -174,6 +188,8 @@ def _fmt(v: Any, pct: bool = False) -> str:
 @click.option("--horizon", default="24h", show_default=True, help="How far ahead.",
               callback=duration(maximum=MAX_HORIZON))
 @click.option("--quantiles", default="0.1,0.9", show_default=True, help="Band quantiles.")
+@click.option("--levels", default=",".join(map(str, band_levels.DEFAULT_LEVELS)),
+              show_default=True, help="Quantile levels written beside the band, or none.")
 @click.option("--exclude", multiple=True, help="START/END of a past one-off event (repeatable).")
 @click.option("--max-gap", default="30m", show_default=True, help="Longest gap filled.")
 @click.option("--generated", default=None, help="Forecast creation time [now] (RFC 3339).")
@@ -221,6 +237,7 @@ def forecast(**o: Any) -> None:
     max_gap = pd.Timedelta(parse_duration(o["max_gap"], field="--max-gap", allow_zero=True))
     season = parse_season(o["season"])
     quantiles = parse_quantiles(o["quantiles"])
+    levels = parse_levels(o["levels"])
     windows = parse_windows(o["exclude"])
     generated = (
         parse_rfc3339(o["generated"], field="--generated")
@@ -256,6 +273,7 @@ def forecast(**o: Any) -> None:
                 method=o["method"],
                 season=season,
                 quantiles=quantiles,
+                levels=levels,
                 event_windows=windows or None,
                 generated=generated,
             )

@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from floorcast.core import forecasting
-from floorcast.core.forecasting import bands, combine, evaluation, finalize, preprocess
+from floorcast.core.forecasting import band_levels, bands, combine, evaluation, finalize, preprocess
 from floorcast.core.forecasting.base import ForecastError
 from floorcast.core.forecasting.select import select, unevaluated
 from floorcast.core.series import Series
@@ -75,6 +75,10 @@ class BatchForecast:
     units: tuple[str | None, ...] = ()
     generated: pd.Timestamp | None = None
     sources: tuple[str, ...] = field(default=())
+    #: Forecast quantiles (docs/formats.md, "Quantiles"): ``levels`` and the load at
+    #: each, (N, L, H), from the band's residuals (``band_levels``); none when L = 0.
+    levels: tuple[float, ...] = ()
+    qvalues: np.ndarray | None = None
 
     def series(self, i: int) -> Series:
         """Row ``i`` as a forecast ``Series`` (needs a known start)."""
@@ -90,6 +94,8 @@ class BatchForecast:
             generated=self.generated,
             source=self.sources[i] if self.sources else "<forecast>",
             meta=self.meta[i],
+            levels=self.levels if self.qvalues is not None else (),
+            quantiles=None if self.qvalues is None else self.qvalues[i],
         )
 
 
@@ -181,6 +187,7 @@ def forecast_batch(
     method: str = "auto",
     season: str | int | pd.Timedelta | None = "auto",
     quantiles: tuple[float, float] = bands.DEFAULT_QUANTILES,
+    levels: Sequence[float] = band_levels.DEFAULT_LEVELS,
     event_windows: Sequence[preprocess.Window] | None = None,
     masked: np.ndarray | None = None,
     filled: np.ndarray | None = None,
@@ -196,11 +203,13 @@ def forecast_batch(
     ``Series`` (their gap-filled points are left out of scoring). ``event_windows``
     are past planned events, as index or instant pairs, masked in every series;
     ``masked`` adds an (N, T) mask of its own. ``candidates`` limits ``auto`` (default:
-    every registered method). Series may differ in length; they are processed in
-    groups of equal length and season.
+    every registered method). ``levels`` are the quantile levels written beside the
+    band (``()``: none). Series may differ in length; they are processed in groups of
+    equal length and season.
     """
     opt = options or Options()
     q = bands.check_quantiles(quantiles)
+    lv = band_levels.check_levels(levels)
     if isinstance(step, str):
         step = parse_duration(step, field="step")
     rows, dt, info = _rows(y, None if step is None else pd.Timedelta(step), filled, start)
@@ -213,7 +222,7 @@ def forecast_batch(
     for name in names:
         forecasting.method(name)  # an unknown name fails before any work
     seasons = _season(season, rows, dt)
-    out = np.zeros((3, n, h))  # point, lower, upper
+    out = np.zeros((3 + len(lv), n, h))  # point, lower, upper, each level
     meta: list[dict[str, Any]] = [{} for _ in range(n)]
     key = [(len(r), int(s)) for r, s in zip(rows, seasons, strict=True)]
     for t_len, s in sorted(set(key)):
@@ -239,6 +248,7 @@ def forecast_batch(
             horizon=h,
             step=dt,
             quantiles=q,
+            levels=lv,
             opt=opt,
         )
         for j, i in enumerate(idx):
@@ -262,6 +272,8 @@ def forecast_batch(
         units=info["units"],
         generated=None if generated is None else pd.Timestamp(generated),
         sources=info["sources"],
+        levels=lv,
+        qvalues=out[3:].transpose(1, 0, 2) if lv else None,
     )
 
 
@@ -277,9 +289,11 @@ def _forecast_group(
     horizon: int,
     step: pd.Timedelta,
     quantiles: tuple[float, float],
+    levels: tuple[float, ...] = (),
     opt: Options,
 ) -> tuple[np.ndarray, list[dict[str, Any]]]:
-    """The whole pipeline for series that share length and season: (3, N, H), meta."""
+    """The whole pipeline for series that share length and season: (3 + L, N, H)
+    (point, lower, upper, then each quantile level), meta."""
     n, t_len = y.shape
     prep = preprocess.prepare(
         y,
@@ -321,15 +335,18 @@ def _forecast_group(
             f"forecast by {', '.join(names)} ({detail})"
         )
     methods = [names[j] for j in final]
-    lo, hi, banded = bands.from_backtests(
-        sel.backtests, methods, horizon, quantiles, pool=opt.pool, start=t_len,
-        period=bands.phase_period(season), calibration=sel.calibration,
-    )  # fmt: skip
+    where = {"pool": opt.pool, "start": t_len, "period": bands.phase_period(season),
+             "calibration": sel.calibration}  # fmt: skip
+    lo, hi, banded = bands.from_backtests(sel.backtests, methods, horizon, quantiles, **where)
+    qo, _ = band_levels.level_offsets(sel.backtests, methods, horizon, levels, **where)
     if not banded.all():
         rest = np.flatnonzero(~banded)
         a, b = bands.insample_quantiles(prep.values[rest], season, valid[rest], quantiles)
         lo[rest], hi[rest] = a[:, None], b[:, None]
-    result = np.stack(bands.apply_offsets(point, lo, hi))
+        qo[rest] = band_levels.insample_offsets(prep.values[rest], season, valid[rest],
+                                                levels)[..., None]  # fmt: skip
+    result = np.concatenate([np.stack(bands.apply_offsets(point, lo, hi)),
+                             band_levels.apply_levels(point, qo, levels).transpose(1, 0, 2)])
     meta = []
     for i in range(n):
         picked = sel.evaluated[i] and final[i] == sel.order[i, 0]
@@ -343,6 +360,7 @@ def _forecast_group(
                 "season_duration": format_duration(step * season) if season else None,
                 "horizon": int(horizon),
                 "quantiles": list(quantiles),
+                "levels": list(levels),
                 "bands": "rolling-origin" if banded[i] else "in-sample",
                 "evaluation": {
                     "origins": int(at.size),

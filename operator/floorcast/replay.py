@@ -134,8 +134,9 @@ def run(
         if setup.end is None
         else min(setup.end, history.end + history.step)
     )
-    own = Knobs(spec.lead_time, spec.headroom, spec.hold_time, base)
-    grid = [own, *(k if isinstance(k, Knobs) else Knobs(k[0], k[1], spec.hold_time, base)
+    own = Knobs(spec.lead_time, spec.headroom, spec.hold_time, base, spec.service_level)
+    grid = [own, *(k if isinstance(k, Knobs)
+                   else Knobs(k[0], k[1], spec.hold_time, base, spec.service_level)
                    for k in sweep)]  # fmt: skip
     oracle_knobs = Knobs(startup, 0.0, timedelta(0), base)
     max_lead = max(pd.Timedelta(g.lead) for g in [*grid, oracle_knobs])
@@ -244,6 +245,7 @@ def run(
     table = [
         {"leadTime": pd.Timedelta(k.lead), "headroom": float(k.headroom),
          "holdTime": pd.Timedelta(k.hold), "target_utilization": float(k.target),
+         "serviceLevel": k.service_level,
          **scores[4 + i], **_saving(tuned[f"sweep{i}"])}
         for i, k in enumerate(grid[1:])
     ]  # fmt: skip

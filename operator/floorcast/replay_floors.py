@@ -12,7 +12,7 @@ it happens rather than at the next whole step.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import timedelta
 
 import numpy as np
@@ -21,19 +21,34 @@ import pandas as pd
 from floorcast import plans
 from floorcast.core import backtest as bt
 from floorcast.core import planning
-from floorcast.core.series import Series
 from floorcast.policy import PolicySpec
 
 
 @dataclass(frozen=True)
 class Knobs:
     """One floorcast configuration replayed: the policy's three planning settings and
-    the HPA target it runs beside (a floor lets the HPA run hotter)."""
+    the HPA target it runs beside (a floor lets the HPA run hotter), and the
+    ``serviceLevel`` it sizes on (None: the band rule, as a policy without one)."""
 
     lead: timedelta
     headroom: float
     hold: timedelta
     target: float  # HPA target utilization of this row, fraction
+    service_level: float | None = None
+
+
+def sized_loads(spec: PolicySpec, rolling: bt.Rolling, grid: Sequence[Knobs]) -> np.ndarray:
+    """(J, G, H) the load each forecast's floor is sized on, per configuration: what
+    ``plans.planning_load`` reads from the forecast as the operator would (its
+    quantiles at the row's ``serviceLevel`` when it carries them, else the band rule).
+    One pass per distinct service level."""
+    out = np.empty((rolling.point.shape[0], len(grid), rolling.point.shape[1]))
+    for level in {k.service_level for k in grid}:
+        use = replace(spec, service_level=level)
+        line = np.stack([plans.planning_load(use, rolling.forecast(j))
+                         for j in range(len(rolling.times))])  # fmt: skip
+        out[:, [g for g, k in enumerate(grid) if k.service_level == level]] = line[:, None, :]
+    return out
 
 
 def floors(
@@ -59,21 +74,13 @@ def floors(
     j_n = rolling.point.shape[0]
     g_n = len(grid)
     if oracle:
-        sized = np.asarray(rolling.point, dtype=np.float64)
+        sized = np.repeat(np.asarray(rolling.point, dtype=np.float64), g_n, axis=0)
     else:
-        sized = np.stack(
-            [
-                plans.planning_load(
-                    spec, Series(start=t, step=rolling.step, values=p, lower=p, upper=u)
-                )
-                for t, p, u in zip(rolling.times, rolling.point, rolling.upper, strict=True)
-            ]
-        )
-    fine = planning.cover_intervals(
+        sized = sized_loads(spec, rolling, grid).reshape(j_n * g_n, -1)
+    load = planning.cover_intervals(  # (J*G, H), forecast-major
         planning.refine(sized, rolling.step, plan_step, centred=rolling.centred)
     )
-    h = fine.shape[1]
-    load = np.repeat(fine, g_n, axis=0)  # (J*G, H), forecast-major
+    h = load.shape[1]
     factors: np.ndarray | float = 1.0
     if spec.planned_events and not oracle:
         f = np.stack(

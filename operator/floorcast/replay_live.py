@@ -29,9 +29,8 @@ import pandas as pd
 from floorcast import plans
 from floorcast.core import backtest as bt
 from floorcast.core import correction, planning
-from floorcast.core.series import Series
 from floorcast.policy import PolicySpec
-from floorcast.replay_floors import Knobs
+from floorcast.replay_floors import Knobs, sized_loads
 
 #: The operator's default reconcile interval (``floorcast run --interval``).
 DEFAULT_INTERVAL = pd.Timedelta(seconds=30)
@@ -51,29 +50,25 @@ def window_needs(
     on the planning grid, per forecast and configuration: what ``correction``
     multiplies by the factor. ``band``: the load the policy plans on (its upper band
     when it asks), else the forecast's value."""
+    j_n, g_n = rolling.point.shape[0], len(grid)
     if band:
-        sized = np.stack([
-            plans.planning_load(
-                spec, Series(start=t, step=rolling.step, values=p, lower=p, upper=u)
-            )
-            for t, p, u in zip(rolling.times, rolling.point, rolling.upper, strict=True)
-        ])  # fmt: skip
+        sized = sized_loads(spec, rolling, grid).reshape(j_n * g_n, -1)
     else:
-        sized = np.asarray(rolling.point, dtype=np.float64)
+        sized = np.repeat(np.asarray(rolling.point, dtype=np.float64), g_n, axis=0)
     fine = planning.cover_intervals(
         planning.refine(sized, rolling.step, plan_step, centred=rolling.centred)
-    )
-    h = fine.shape[1]
-    ev = np.ones_like(fine)
+    ).reshape(j_n, g_n, -1)
+    h = fine.shape[2]
+    ev = np.ones((j_n, h))
     if spec.planned_events:
         ev = np.stack([
             plans.policy_event_factors(spec, pd.date_range(t, periods=h, freq=plan_step))
             for t in rolling.times
         ])  # fmt: skip
-    out = np.empty((fine.shape[0], len(grid), h))
+    out = np.empty((j_n, g_n, h))
     for g, k in enumerate(grid):
         per = per_replica * k.target / base_target
-        need = fine * ev * (1.0 + float(k.headroom)) / per
+        need = fine[:, g] * ev * (1.0 + float(k.headroom)) / per
         lead = planning.window_steps(pd.Timedelta(k.lead), plan_step)
         hold = planning.window_steps(pd.Timedelta(k.hold), plan_step)
         out[:, g, :] = planning.sliding_max(need, hold, lead)

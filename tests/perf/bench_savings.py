@@ -30,8 +30,9 @@ dataset, at least 80 % of the oracle's saving on smooth ones, and floorcast's
 saturation at most 10 % of the HPA alone's at the same target.
 
 Run: python tests/perf/bench_savings.py [--quick] [--sample 15min] [--grid]
-(``--quick``: seasonal naive; ``--grid``: also holdTime × headroom × band, the
-frontier the defaults are chosen from, docs/backtest.md).
+[--service-levels] (``--quick``: seasonal naive; ``--grid``: also holdTime ×
+headroom × band, the frontier the defaults are chosen from; ``--service-levels``:
+serviceLevel × headroom against the band, docs/backtest.md).
 """
 
 from __future__ import annotations
@@ -159,11 +160,30 @@ def grid(d: Dataset, h: Series, method: str, sample: pd.Timedelta) -> None:
         print(f"  grid ({'band' if upper else 'value'}) {cells}")
 
 
+def service_levels(d: Dataset, h: Series, method: str, sample: pd.Timedelta) -> None:
+    """serviceLevel {0.8, 0.9, 0.95, 0.99} × headroom {0, 0.1} against the defaults
+    (headroom 0.1 on the upper band): the saving at equal saturation of each, from the
+    same rolling forecasts (their quantiles come from the band's residuals)."""
+    knobs = [replay.Knobs(timedelta(minutes=5), hd, timedelta(0), TARGET, sl)
+             for hd in (0.0, 0.1) for sl in (0.8, 0.9, 0.95, 0.99)]  # fmt: skip
+    r = replay.run(spec(), h, setup(d, method, sample), sweep=knobs)
+    fc = r.scores[r.row("floorcast")]
+    print(f"  {'band + headroom 0.1':22s} saturation {fc['under_capacity_minutes']:6.1f} min  "
+          f"replica-h {fc['replica_hours']:7.1f}  saving {pct(r.tuned['floorcast']['saving'])}")
+    for row in r.sweep:
+        label = f"serviceLevel {row['serviceLevel']:g}, head {row['headroom']:g}"
+        print(f"  {label:22s} saturation {row['under_capacity_minutes']:6.1f} min  "
+              f"replica-h {row['replica_hours']:7.1f}  "
+              f"saving {pct(row['saving_at_equal_saturation'])}")  # fmt: skip
+
+
 def main() -> int:
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true", help="seasonal naive instead of auto")
     ap.add_argument("--sample", default="5min", help="service time per sample [5min]")
     ap.add_argument("--grid", action="store_true", help="also the holdTime × headroom grid")
+    ap.add_argument("--service-levels", action="store_true",
+                    help="also serviceLevel × headroom against the band")  # fmt: skip
     a = ap.parse_args()
     method = "seasonal-naive" if a.quick else "auto"
     sample = pd.Timedelta(a.sample)
@@ -193,6 +213,8 @@ def main() -> int:
         report("live correction", corrected)
         if a.grid:
             grid(d, h, method, sample)
+        if a.service_levels:
+            service_levels(d, h, method, sample)
         print(f"  time {time.perf_counter() - t0:.1f} s")
         goal = "saving >= 30 %" if d.kind == "bursty" else "oracle captured >= 80 %"
         met = (res["saving"] or -1) >= 0.3 if d.kind == "bursty" else (res["capture"] or 0) >= 0.8

@@ -28,6 +28,7 @@ from floorcast.durations import format_duration, parse_duration
 from floorcast.errors import InputError
 from floorcast.hpa_manifest import load_hpa_file
 from floorcast.policy import load_policy_file
+from floorcast.policy_fields import MAX_SERVICE_LEVEL, MIN_SERVICE_LEVEL
 from floorcast.sources.files import read_history
 from floorcast.timefmt import iso, parse_rfc3339
 
@@ -36,7 +37,7 @@ REPLAY_GAP_FILL = "ffill"
 HELP = "Replay history through the reactive HPA, with and without floors."
 
 
-SWEEP_KEYS = ("leadTime", "headroom", "holdTime", "targetUtilization")
+SWEEP_KEYS = ("leadTime", "headroom", "holdTime", "targetUtilization", "serviceLevel")
 
 
 def _numbers(key: str, vals: str, parts: list[str], *, lo: float, lo_open: bool) -> list[float]:
@@ -50,9 +51,11 @@ def _numbers(key: str, vals: str, parts: list[str], *, lo: float, lo_open: bool)
 
 
 def parse_sweep(items: tuple[str, ...], own: replay.Knobs) -> list[replay.Knobs]:
-    """``leadTime=2m,5m headroom=0,0.1 holdTime=0,15m targetUtilization=70,85`` -> the
-    grid's configurations (every combination; unswept settings keep ``own``'s)."""
+    """``leadTime=2m,5m headroom=0,0.1 holdTime=0,15m targetUtilization=70,85
+    serviceLevel=0.9,0.95`` -> the grid's configurations (every combination; unswept
+    settings keep ``own``'s)."""
     leads, heads, holds, targets = [own.lead], [own.headroom], [own.hold], [own.target]
+    levels: list[float | None] = [own.service_level]
     for item in items:
         key, _, vals = item.partition("=")
         parts = [v for v in vals.split(",") if v]
@@ -70,10 +73,15 @@ def parse_sweep(items: tuple[str, ...], own: replay.Knobs) -> list[replay.Knobs]
             if any(p > 1000 for p in pcts):
                 raise InputError("--sweep targetUtilization: values must be <= 1000 (percent)")
             targets = [p / 100.0 for p in pcts]
+        elif key == "serviceLevel":  # the policy field's bounds (docs/policy.md)
+            levels = [*_numbers(key, vals, parts, lo=MIN_SERVICE_LEVEL, lo_open=False)]
+            if any(v > MAX_SERVICE_LEVEL for v in levels):
+                raise InputError(f"--sweep serviceLevel: values must be <= {MAX_SERVICE_LEVEL:g}")
         else:
             raise InputError(f"--sweep: unknown setting {key!r} (use {', '.join(SWEEP_KEYS)})")
-    return [replay.Knobs(ld, h, hd, t)
-            for ld in leads for h in heads for hd in holds for t in targets]  # fmt: skip
+    return [replay.Knobs(ld, h, hd, t, s)
+            for ld in leads for h in heads for hd in holds for t in targets
+            for s in levels]  # fmt: skip
 
 
 def parse_ladder(text: str) -> tuple[float, ...]:
@@ -272,12 +280,14 @@ def print_summary(r: replay.Result, name: str, target: float, console: Console) 
         )
     if r.sweep:
         title = f"trade-off (pods start in {format_duration(r.pod_startup)} in every row)"
-        st = Table("leadTime", "holdTime", "headroom", "HPA target", "under capacity (min)",
-                   "replica-hours", "saving at equal saturation", title=title)  # fmt: skip
+        st = Table("leadTime", "holdTime", "headroom", "HPA target", "serviceLevel",
+                   "under capacity (min)", "replica-hours", "saving at equal saturation",
+                   title=title)  # fmt: skip
         for row in r.sweep:
+            lvl = row["serviceLevel"]
             st.add_row(format_duration(row["leadTime"].to_pytimedelta()),
                        format_duration(row["holdTime"].to_pytimedelta()), f"{row['headroom']:g}",
-                       f"{row['target_utilization']:.0%}",
+                       f"{row['target_utilization']:.0%}", "band" if lvl is None else f"{lvl:g}",
                        f"{row['under_capacity_minutes']:.1f}", f"{row['replica_hours']:.1f}",
                        saving_pct(row["saving_at_equal_saturation"],
                             row["equal_saturation_found"]))  # fmt: skip

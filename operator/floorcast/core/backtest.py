@@ -84,6 +84,18 @@ class Rolling:
     train: list[np.ndarray]  # each forecast's training values (for MASE)
     #: Each point is the mean of the step it labels (resampled), not a sample.
     centred: bool = False
+    #: The forecasts' quantiles (docs/formats.md, "Quantiles"), (J, L, H), so a
+    #: policy's ``serviceLevel`` is replayed as the operator plans it; none: L = 0.
+    levels: tuple[float, ...] = ()
+    quantiles: np.ndarray | None = None
+
+    def forecast(self, j: int) -> Series:
+        """Forecast ``j`` as the operator would read it from its file."""
+        p = self.point[j]
+        q = None if self.quantiles is None else self.quantiles[j]
+        return Series(start=self.times[j], step=self.step, values=p, lower=p,
+                      upper=self.upper[j], levels=self.levels if q is not None else (),
+                      quantiles=q)  # fmt: skip
 
 
 def rolling_forecasts(
@@ -127,6 +139,8 @@ def rolling_forecasts(
         season=np.asarray(bf.season),
         train=[np.asarray(r.values) for r in rows],
         centred=step > history.step,
+        levels=bf.levels,
+        quantiles=bf.qvalues,
     )
 
 

@@ -85,6 +85,17 @@ def planning_label(spec: PolicySpec, forecast: Series) -> str:
     return _sized_on(spec, forecast)[1]
 
 
+def service_level_fallback(spec: PolicySpec, forecast: Series) -> str | None:
+    """The sentence an operator sees in the ForecastAvailable condition when the policy
+    asks for a ``serviceLevel`` and the forecast carries no quantiles, so the floor is
+    sized on the band rule instead (docs/policy.md, "serviceLevel"); None otherwise."""
+    if spec.service_level is None or forecast.quantiles is not None:
+        return None
+    used = "upper band" if spec.use_upper_bound and forecast.upper is not None else "value"
+    return (f"serviceLevel {quantiles.level_name(spec.service_level)} asked but the forecast "
+            f"has no quantiles; sized on {used}")  # fmt: skip
+
+
 def refined_load(spec: PolicySpec, forecast: Series, fine: pd.Timedelta) -> np.ndarray:
     """The planning load read on ``fine`` (``planning.refine``), from the forecast's
     first point to its last: the same reading the back-test plans on

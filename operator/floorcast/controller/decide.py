@@ -51,7 +51,7 @@ from floorcast.controller.state import (  # noqa: F401  (re-exported)
     Observed,
 )
 from floorcast.errors import InputError
-from floorcast.plans import plan_policy
+from floorcast.plans import plan_policy, service_level_fallback
 from floorcast.timefmt import iso
 
 
@@ -210,6 +210,7 @@ def decide(obs: Observed) -> Decision:
         extra["nextChange"] = {"at": iso(nxt.at), "replicas": nxt.new}
     peak = iso(peak_at(plan, obs.now))
     note = f"; {obs.forecast.note}" if obs.forecast.note else ""
+    note += f"; {fb}" if (fb := service_level_fallback(plan.spec, plan.forecast)) else ""
     fc_ok = _c(FORECAST_AVAILABLE, True, FORECAST_OK, f"forecast until {iso(series.end)}{note}")
     if dry:
         patch = restore(own, hpa)  # switching to DryRun (or --dry-run) restores

@@ -309,7 +309,7 @@ def _forecast_group(
     valid = ~prep.excluded
     h_eval = max(1, min(horizon, steps(opt.max_eval_horizon, step, "evaluation horizon")))
     spacing = max(1, steps(opt.origin_spacing, step, "origin spacing"))
-    at = _origins(t_len, h_eval, season, spacing, opt.origins)
+    at = evaluation.training_origins(t_len, h_eval, season, spacing, opt.origins)
     if at.size:
         sel = select(
             prep.values,
@@ -377,21 +377,6 @@ def _forecast_group(
             }
         )
     return result, meta
-
-
-def _origins(t_len: int, h_eval: int, season: int, spacing: int, count: int) -> np.ndarray:
-    """Rolling origins with two seasons of training before each (what the seasonal
-    methods need), when that still leaves a week of daily origins; else with one
-    season before each, as many as fit. An origin a method cannot train at
-    disqualifies the method for the series, so the first choice keeps the
-    multi-season methods and Holt-Winters in the running."""
-    least = min(count, 7)
-    at = evaluation.origins(
-        t_len, h_eval, count=count, spacing=spacing, min_train=max(2, 2 * season)
-    )
-    if at.size >= least:
-        return at
-    return evaluation.origins(t_len, h_eval, count=count, spacing=spacing, min_train=max(2, season))
 
 
 def forecast_series(

@@ -229,6 +229,19 @@ class Backtest:
         return {"mase": self.mase(), "smape": self.smape(), "mae": self.mae(), "wape": self.wape()}
 
 
+def training_origins(t_len: int, h_eval: int, season: int, spacing: int, count: int) -> np.ndarray:
+    """Rolling origins with two seasons of training before each (what the seasonal
+    methods need), when that still leaves a week of daily origins; else with one
+    season before each, as many as fit. An origin a method cannot train at
+    disqualifies the method for the series, so the first choice keeps the
+    multi-season methods and Holt-Winters in the running."""
+    least = min(count, 7)
+    at = origins(t_len, h_eval, count=count, spacing=spacing, min_train=max(2, 2 * season))
+    if at.size >= least:
+        return at
+    return origins(t_len, h_eval, count=count, spacing=spacing, min_train=max(2, season))
+
+
 def rolling_origin(
     y: np.ndarray,
     call: MethodCall,

@@ -11,7 +11,8 @@ from floorcast.controller import metrics
 
 ROOT = Path(__file__).resolve().parents[1]
 GUIDE = (ROOT / "DEVELOPERS.md").read_text()
-NUMBERS = {"five": 5, "six": 6, "seven": 7, "eight": 8, "nine": 9, "ten": 10}
+NUMBERS = {"five": 5, "six": 6, "seven": 7, "eight": 8, "nine": 9, "ten": 10, "eleven": 11,
+           "twelve": 12}
 
 
 def _architecture_rows() -> list[list[str]]:

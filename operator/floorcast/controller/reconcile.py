@@ -45,7 +45,7 @@ from floorcast.controller.state import (
     LiveMemory,
     Observed,
 )
-from floorcast.controller.watched import Caches
+from floorcast.controller.watched import Caches, plain
 from floorcast.controller.workqueue import WorkQueue
 from floorcast.kube import policies
 from floorcast.kube.finalizer import FINALIZER, set_finalizer
@@ -65,15 +65,6 @@ FAULT_ENV = "FLOORCAST_FAULT_KILL_AFTER_HPA_PATCH"
 ConfigMapLookup = Callable[[str, str], tuple[dict[str, str], str] | None]
 #: (namespace, hpa name) -> [(creationTimestamp, policy name)] of all policies on it.
 TargetLookup = Callable[[str, str], Iterable[tuple[str, str]]]
-
-
-def plain(obj: Any) -> Any:
-    """kopf bodies are read-only views; the policy parser wants plain dicts and lists."""
-    if isinstance(obj, Mapping):
-        return {k: plain(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [plain(v) for v in obj]
-    return obj
 
 
 @dataclass

@@ -19,11 +19,13 @@ from floorcast.controller.state import HpaState
 Key = tuple[str, str]
 
 
-def _plain(obj: Any) -> Any:
+def plain(obj: Any) -> Any:
+    """kopf bodies are read-only views; the policy parser and the workers want plain
+    dicts and lists."""
     if isinstance(obj, Mapping):
-        return {k: _plain(v) for k, v in obj.items()}
+        return {k: plain(v) for k, v in obj.items()}
     if isinstance(obj, list | tuple):
-        return [_plain(v) for v in obj]
+        return [plain(v) for v in obj]
     return obj
 
 
@@ -62,9 +64,9 @@ class Caches:
     # Policies ----------------------------------------------------------------------
     def remember(self, key: Key, body: Mapping[str, Any], inputs: Hashable) -> bool:
         """Store the latest body; True if an input (not only the status) changed."""
-        plain = _plain(body)
+        copy = plain(body)
         with self._lock:
-            self._bodies[key] = plain
+            self._bodies[key] = copy
             self._deleted.pop(key, None)
             old = self._inputs.get(key)
             self._inputs[key] = inputs
@@ -75,7 +77,7 @@ class Caches:
         with self._lock:
             self._bodies.pop(key, None)
             self._inputs.pop(key, None)
-            self._deleted[key] = _plain(body)
+            self._deleted[key] = plain(body)
 
     def body(self, key: Key) -> tuple[dict[str, Any] | None, bool]:
         """(body, deleted): the live body, else the last one of a deleted policy."""

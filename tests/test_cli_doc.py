@@ -135,3 +135,32 @@ def test_exit_codes_are_the_documented_ones(shop, capsys):
     assert err.count("\n") == 1 and err.startswith("floorcast: error: ") and "row 3" in err
     code, _, _ = run(["plan", "--no-such-option"], capsys)
     assert code == 2  # a usage error is bad input too
+
+
+def test_status_json_keys_and_columns_are_the_documented_ones():
+    """From a status with every field the operator writes, through the pure row builder
+    that ``floorcast status --json`` prints (the real command: e2e/test_cli_status.py)."""
+    from datetime import UTC, datetime
+
+    from floorcast.cli.status_rows import COLUMNS, policy_row
+
+    status = {
+        "floor": 7, "baseline": 2, "proposedFloor": 7, "leadTime": {"value": "2m"},
+        "nextChange": {"at": "2026-12-03T18:20:00Z", "replicas": 2},
+        "forecastGenerated": "2026-12-03T17:48:00Z", "lastAppliedTime": "2026-12-03T17:50:00Z",
+        "accuracy": {"error": 0.1, "exceedance": 0.0, "reason": "WithinLimits", "message": "m"},
+        "addedReplicaHours": 1.5, "explanation": "floor 7: the 18:05 peak",
+        "conditions": [{"type": "Ready", "status": "True", "reason": "FloorApplied",
+                        "message": "m"}],
+    }  # fmt: skip
+    obj = {"metadata": {"namespace": "shop", "name": "web"}, "status": status,
+           "spec": {"targetRef": {"name": "web"}, "mode": "Enforce"}}  # fmt: skip
+    doc = policy_row(obj, datetime(2026, 12, 3, 18, tzinfo=UTC))
+    assert all(v is not None for v in doc.values())  # a full status fills every key
+    (table,) = tables(section("`floorcast status --json`"))
+    documented = keys(table)
+    assert paths(doc, documented) == documented
+    (columns,) = tables(section("`floorcast status`"))
+    shown = [c for names, _ in columns if names != {"Column"} for n in names
+             for c in n.split(", ")]  # fmt: skip
+    assert shown == list(COLUMNS)

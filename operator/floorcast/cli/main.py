@@ -19,6 +19,7 @@ from floorcast.cli.demo import demo
 from floorcast.cli.forecast import forecast
 from floorcast.cli.plan import plan
 from floorcast.cli.run import run
+from floorcast.cli.status import status
 from floorcast.errors import InputError
 
 
@@ -37,6 +38,7 @@ app.add_command(plan)
 app.add_command(demo)
 app.add_command(run)
 app.add_command(backtest)
+app.add_command(status)
 
 
 def fail(message: str, code: int) -> None:

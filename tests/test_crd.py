@@ -15,7 +15,7 @@ import pytest
 import yaml
 
 from floorcast import policy
-from floorcast.durations import DURATION_PATTERN
+from floorcast.durations import DURATION_PATTERN, LEAD_TIME_PATTERN
 
 CRD = Path(__file__).resolve().parents[1] / "crds" / "forecastscalingpolicies.floorcast.dev.yaml"
 
@@ -57,8 +57,12 @@ def test_every_default_agrees(schema):
 
 def test_duration_patterns_are_the_policy_pattern(schema):
     spec = schema["properties"]["spec"]["properties"]
-    for prop in (spec["leadTime"], spec["holdTime"], spec["forecast"]["properties"]["maxAge"]):
+    for prop in (spec["holdTime"], spec["forecast"]["properties"]["maxAge"]):
         assert prop["pattern"] == DURATION_PATTERN
+    assert spec["leadTime"]["pattern"] == LEAD_TIME_PATTERN
+    assert re.fullmatch(LEAD_TIME_PATTERN, "auto") and re.fullmatch(LEAD_TIME_PATTERN, "90s")
+    for bad in ("Auto", "auto5m", "5mauto"):
+        assert not re.fullmatch(LEAD_TIME_PATTERN, bad)
     # And what the pattern accepts, policy.py parses (and the reverse for samples).
     for text in ("5m", "1h30m", "90s", "250ms", "0s"):
         assert re.fullmatch(DURATION_PATTERN, text)
@@ -130,9 +134,12 @@ def test_every_string_pattern_is_the_one_policy_py_applies(schema):
     assert {p for p, v in got.items() if v == policy._DNS_SUBDOMAIN.pattern} == names
     assert got["forecast.configMapRef.key"] == policy._CONFIGMAP_KEY.pattern
     durations = {p for p, v in got.items() if v == DURATION_PATTERN}
-    assert durations == {"leadTime", "holdTime", "forecast.maxAge", "liveCorrection.halfLife",
+    assert durations == {"holdTime", "forecast.maxAge", "liveCorrection.halfLife",
+                         "leadTimeAuto.margin", "leadTimeAuto.min", "leadTimeAuto.max",
                          "accuracyGuard.window", "accuracyGuard.recoverAfter"}
-    assert set(got) == names | durations | {"forecast.configMapRef.key", "forecast.url"}
+    assert got["leadTime"] == LEAD_TIME_PATTERN
+    assert set(got) == names | durations | {"forecast.configMapRef.key", "forecast.url",
+                                            "leadTime"}
     # What the name pattern refuses, policy.py refuses too, with the field's path.
     for bad in ("Web_1", "web.", "-web", "fc/x"):
         assert not re.fullmatch(got["targetRef.name"], bad)
@@ -175,6 +182,9 @@ def test_string_lengths_are_the_crd_max_lengths(schema):
             "holdTime",
             "forecast.maxAge",
             "liveCorrection.halfLife",
+            "leadTimeAuto.margin",
+            "leadTimeAuto.min",
+            "leadTimeAuto.max",
             "accuracyGuard.window",
             "accuracyGuard.recoverAfter",
             "plannedEvents[].start",
@@ -189,3 +199,22 @@ def test_string_lengths_are_the_crd_max_lengths(schema):
         field = "spec." + path.replace("[]", "[0]")
         with pytest.raises(policy.PolicyError, match=re.escape(field)):
             policy.parse_policy(make(n + 1), source="t")
+
+
+def test_lead_time_auto_parses_with_bounds_and_falls_back_within_them():
+    p = policy.parse_policy(_doc(leadTime="auto"), source="t")
+    assert p.spec.lead_time_auto == policy.LeadTimeAuto()
+    assert p.spec.lead_time == policy.DEFAULT_LEAD_TIME  # 5m is inside [30s, 15m]
+    p = policy.parse_policy(_doc(leadTime="auto", leadTimeAuto={"min": "10m", "max": "20m"}),
+                            source="t")  # fmt: skip
+    assert policy.format_duration(p.spec.lead_time) == "10m"  # the default, raised to min
+    assert policy.parse_policy(_doc(leadTime="5m"), source="t").spec.lead_time_auto is None
+    with pytest.raises(policy.PolicyError, match=r"spec\.leadTimeAuto: applies only"):
+        policy.parse_policy(_doc(leadTime="5m", leadTimeAuto={"margin": "1m"}), source="t")
+    with pytest.raises(policy.PolicyError, match=r"spec\.leadTimeAuto\.max: .*expected max >= min"):
+        policy.parse_policy(_doc(leadTime="auto", leadTimeAuto={"min": "2m", "max": "1m"}),
+                            source="t")  # fmt: skip
+    with pytest.raises(policy.PolicyError, match=r"spec\.leadTimeAuto\.min"):
+        policy.parse_policy(_doc(leadTime="auto", leadTimeAuto={"min": "0s"}), source="t")
+    with pytest.raises(policy.PolicyError, match=r"spec\.leadTime"):
+        policy.parse_policy(_doc(leadTime="Auto"), source="t")

@@ -259,13 +259,16 @@ def test_spec_defaults_match_design() -> None:
         "useUpperBound": True,
         "mode": "DryRun",
         "liveCorrection": {"enabled": False, "halfLife": "30m", "min": 0.5, "max": 2.0},
+        "leadTimeAuto": {"margin": "30s", "min": "30s", "max": "15m"},
         "accuracyGuard": {"enabled": False, "maxError": 0.5, "maxExceedance": 0.5,
                           "window": "1h", "recoverAfter": "30m", "action": "Baseline"},
     }
 
 
 def test_spec_defaults_written_out_parse_like_omitted_ones() -> None:
-    doc = minimal(**{k: v for k, v in spec_defaults().items() if k != "forecast"})
+    # leadTimeAuto applies only with leadTime: auto, so written out it is left out.
+    doc = minimal(**{k: v for k, v in spec_defaults().items()
+                     if k not in ("forecast", "leadTimeAuto")})  # fmt: skip
     doc["spec"]["forecast"].update(spec_defaults()["forecast"])
     assert parse_policy(doc) == parse_policy(minimal())
 

@@ -18,6 +18,8 @@ _PART = re.compile(r"(\d+(?:\.\d+)?)(ms|s|m|h|d|w)")
 #: CEL's ``duration()``, which knows Go's units and not ``d``/``w``. The CRD schema uses
 #: this same pattern, so the API server and the CLI accept exactly the same strings.
 DURATION_PATTERN = r"^([0-9]+(\.[0-9]+)?(ms|s|m|h))+$"
+#: ``spec.leadTime`` also takes ``auto`` (the lead measured from pod start-ups).
+LEAD_TIME_PATTERN = r"^(auto|([0-9]+(\.[0-9]+)?(ms|s|m|h))+)$"
 _GO_UNITS = ("ms", "s", "m", "h")
 
 

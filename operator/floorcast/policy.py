@@ -74,6 +74,15 @@ DEFAULT_CORRECTION_HALF_LIFE = timedelta(minutes=30)
 DEFAULT_CORRECTION_MIN = 0.5
 DEFAULT_CORRECTION_MAX = 2.0
 DEFAULT_NAMESPACE = "default"
+#: ``leadTime: auto`` (docs/policy.md, "Measured lead time"): the lead is the measured
+#: pod start-up + margin, clamped to [min, max]. A 30 s margin covers one default
+#: readiness-probe period (10 s) three times over (common practice, no source); 15m
+#: as the default ceiling keeps a slow start-up from planning a quarter-hour ahead
+#: unasked.
+LEAD_TIME_AUTO = "auto"
+DEFAULT_LEAD_AUTO_MARGIN = timedelta(seconds=30)
+DEFAULT_LEAD_AUTO_MIN = timedelta(seconds=30)
+DEFAULT_LEAD_AUTO_MAX = timedelta(minutes=15)
 
 # ObjectMeta fields, so a manifest exported with ``kubectl get -o yaml`` still parses.
 _METADATA_FIELDS = (
@@ -85,6 +94,7 @@ _SPEC_FIELDS = (
     "targetRef", "forecast", "capacity", "leadTime", "holdTime", "headroom",
     "useUpperBound", "minReplicas", "maxReplicas", "mode", "plannedEvents", "liveCorrection",
     "serviceLevel", "accuracyGuard",
+    "leadTimeAuto",
 )  # fmt: skip
 _DNS_SUBDOMAIN = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$")
 _DNS_LABEL = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?$")
@@ -132,6 +142,16 @@ class LiveCorrection:
 
 
 @dataclass(frozen=True)
+class LeadTimeAuto:
+    """``leadTime: auto``: lead = clamp(measured start-up + margin, low, high); while
+    too few Pods were measured, clamp(the default leadTime, low, high)."""
+
+    margin: timedelta = DEFAULT_LEAD_AUTO_MARGIN
+    low: timedelta = DEFAULT_LEAD_AUTO_MIN
+    high: timedelta = DEFAULT_LEAD_AUTO_MAX
+
+
+@dataclass(frozen=True)
 class PolicySpec:
     target_name: str
     forecast: ForecastSource
@@ -149,6 +169,9 @@ class PolicySpec:
     planned_events: tuple[PlannedEvent, ...] = ()
     live_correction: LiveCorrection = LiveCorrection()
     accuracy_guard: AccuracyGuard = AccuracyGuard()  # noqa: RUF009 (frozen)
+    #: Set for ``leadTime: auto``; ``lead_time`` then holds the fallback lead, which
+    #: the operator replaces with the measured one (controller/leadtime.py).
+    lead_time_auto: LeadTimeAuto | None = None
 
 
 @dataclass(frozen=True)
@@ -178,6 +201,11 @@ def spec_defaults() -> dict[str, Any]:
             "max": DEFAULT_CORRECTION_MAX,
         },
         "accuracyGuard": guard_defaults(),
+        "leadTimeAuto": {
+            "margin": format_duration(DEFAULT_LEAD_AUTO_MARGIN),
+            "min": format_duration(DEFAULT_LEAD_AUTO_MIN),
+            "max": format_duration(DEFAULT_LEAD_AUTO_MAX),
+        },
     }
 
 
@@ -202,11 +230,13 @@ def parse_spec(spec: _M, *, source: str = "policy") -> PolicySpec:
         near = [m for m in MODES if isinstance(mode, str) and m.lower() == mode.lower()]
         hint = f" (did you mean {near[0]!r}? case matters)" if near else ""
         r.fail("spec.mode", f"got {_describe(mode)}{hint}; expected one of {', '.join(MODES)}")
+    auto = _lead_time_auto(r, s)
     return PolicySpec(
         target_name=r.string(target, f"{tp}.name", _NAME),
         forecast=_forecast(r, s),
         capacity=_capacity(r, s),
-        lead_time=r.duration(s, "spec.leadTime", default=DEFAULT_LEAD_TIME, allow_zero=False),
+        lead_time=(_auto_fallback(auto) if auto else
+                   r.duration(s, "spec.leadTime", default=DEFAULT_LEAD_TIME, allow_zero=False)),
         hold_time=r.duration(s, "spec.holdTime", default=DEFAULT_HOLD_TIME, allow_zero=True),
         headroom=r.number(s, "spec.headroom", above=0, inclusive=True, maximum=MAX_HEADROOM,
                           default=DEFAULT_HEADROOM),
@@ -219,7 +249,33 @@ def parse_spec(spec: _M, *, source: str = "policy") -> PolicySpec:
         planned_events=_events(r, s.get("plannedEvents"), "spec.plannedEvents"),
         live_correction=_live_correction(r, s),
         accuracy_guard=read_guard(r, s),
+        lead_time_auto=auto,
     )
+
+
+def _auto_fallback(auto: LeadTimeAuto) -> timedelta:
+    """The lead while too few Pods were measured: the default, within the bounds."""
+    return min(max(DEFAULT_LEAD_TIME, auto.low), auto.high)
+
+
+def _lead_time_auto(r: _Reader, s: _M) -> LeadTimeAuto | None:
+    """``leadTime: auto`` with its optional ``leadTimeAuto`` block; the block without
+    ``auto`` is a mistake (it would silently do nothing)."""
+    p = "spec.leadTimeAuto"
+    if s.get("leadTime") != LEAD_TIME_AUTO:
+        if s.get("leadTimeAuto") is not None:
+            r.fail(p, "applies only with spec.leadTime: auto")
+        return None
+    c = r.child(s, p, ("margin", "min", "max")) if s.get("leadTimeAuto") is not None else {}
+    auto = LeadTimeAuto(
+        margin=r.duration(c, f"{p}.margin", default=DEFAULT_LEAD_AUTO_MARGIN, allow_zero=True),
+        low=r.duration(c, f"{p}.min", default=DEFAULT_LEAD_AUTO_MIN, allow_zero=False),
+        high=r.duration(c, f"{p}.max", default=DEFAULT_LEAD_AUTO_MAX, allow_zero=False),
+    )
+    if auto.high < auto.low:
+        r.fail(f"{p}.max", f"{format_duration(auto.high)} is less than {p}.min "
+                           f"({format_duration(auto.low)}); expected max >= min")  # fmt: skip
+    return auto
 
 
 def _live_correction(r: _Reader, s: _M) -> LiveCorrection:

@@ -15,8 +15,8 @@ from dataclasses import dataclass
 from typing import Any
 
 READY, FORECAST_AVAILABLE, APPLIED = "Ready", "ForecastAvailable", "Applied"
-FORECAST_ACCURATE = "ForecastAccurate"
-ORDER = (READY, FORECAST_AVAILABLE, FORECAST_ACCURATE, APPLIED)
+FORECAST_ACCURATE, LEAD_TIME_MEASURED = "ForecastAccurate", "LeadTimeMeasured"
+ORDER = (READY, FORECAST_AVAILABLE, FORECAST_ACCURATE, LEAD_TIME_MEASURED, APPLIED)
 
 
 @dataclass(frozen=True)

@@ -331,6 +331,9 @@ def _finish(
         events = [edit, *events]
     now_iso = iso(obs.now)
     status: dict[str, Any] = {k: v for k, v in (extra or {}).items() if v is not None}
+    if obs.lead is not None:  # leadTime: auto (controller/leadtime.py)
+        status["leadTime"] = obs.lead.status
+        conds = [*conds, obs.lead.condition]
     if obs.generation is not None:
         status["observedGeneration"] = obs.generation
     if patch is not None:

@@ -29,7 +29,7 @@ import pandas as pd
 from kubernetes import client as k8s
 from kubernetes.client.rest import ApiException
 
-from floorcast.controller import metrics
+from floorcast.controller import leadtime, metrics
 from floorcast.controller.capacity import per_replica_from_hpa
 from floorcast.controller.decide import conflict_winner
 from floorcast.controller.failsafe import decide_safely, fail_safe
@@ -50,6 +50,7 @@ from floorcast.controller.workqueue import WorkQueue
 from floorcast.kube import policies
 from floorcast.kube.finalizer import FINALIZER, set_finalizer
 from floorcast.kube.hpa import Conflict, patch_hpa, read_hpa
+from floorcast.kube.pods import read_pod_times
 from floorcast.kube.workload import read_pod_spec
 from floorcast.policy import Policy, PolicyError, parse_policy
 from floorcast.sources.configmap import ParsedCache, forecast_from_configmap
@@ -94,6 +95,8 @@ class Runtime:
     wake_in: dict[tuple[str, str], float] = field(default_factory=dict)
     #: Policies known to carry our finalizer (the watched body may lag our own patch).
     finalized: set[tuple[str, str]] = field(default_factory=set)
+    #: ``leadTime: auto``: the last Pod start-ups listed per policy (controller/leadtime.py).
+    lead: leadtime.LeadMemory = field(default_factory=leadtime.LeadMemory)
 
     def lock(self, namespace: str, name: str) -> threading.Lock:
         with self._guard:
@@ -107,6 +110,7 @@ class Runtime:
             self.guard.pop((namespace, name), None)
             self.wake_in.pop((namespace, name), None)
             self.finalized.discard((namespace, name))
+        self.lead.forget((namespace, name))
         metrics.forget(namespace, name)
 
 
@@ -187,6 +191,12 @@ def observe(rt: Runtime, body: Mapping[str, Any], *, deleting: bool,
     if forecast is None:
         forecast = _forecast(rt, pol, configmaps) if needs and pol else ForecastState()
     per_replica, per_replica_error = _capacity(rt, ns, pol, hpa) if needs else (None, None)
+    lead = None
+    if needs and pol is not None:
+        pol, lead = leadtime.resolve(rt.lead, (ns, name), pol, hpa.scale_target,
+                                     lambda n, t: read_pod_times(
+                                         rt.api, n, t, timeout=rt.settings.api_timeout_seconds),
+                                     now=time.monotonic())  # fmt: skip
     return Observed(
         name=name, namespace=ns, policy=pol, hpa=hpa, forecast=forecast,
         now=pd.Timestamp.now(tz="UTC").floor("s"),
@@ -194,7 +204,7 @@ def observe(rt: Runtime, body: Mapping[str, Any], *, deleting: bool,
         generation=meta.get("generation"), policy_error=err,
         operator_dry_run=rt.settings.dry_run, conflict_with=conflict, deleting=deleting,
         per_replica=per_replica, per_replica_error=per_replica_error,
-        live=rt.live.get((ns, name)), guard=rt.guard.get((ns, name)),
+        live=rt.live.get((ns, name)), guard=rt.guard.get((ns, name)), lead=lead,
     )  # fmt: skip
 
 

@@ -32,6 +32,7 @@ STATUS_KEYS = (
     "liveCorrection",
     "accuracy",
     "addedReplicaHours",
+    "leadTime",
     "conditions",
 )
 
@@ -116,6 +117,9 @@ class Observed:
     live: LiveMemory | None = None
     #: The accuracy guard's and the cost's memory (controller/accuracy.py).
     guard: Any = None
+    #: ``leadTime: auto``: the measured lead's report (controller/leadtime.py ``Lead``);
+    #: the policy above already plans with its lead.
+    lead: Any = None
 
 
 @dataclass(frozen=True)

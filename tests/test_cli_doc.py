@@ -86,14 +86,17 @@ def test_plan_json_keys_are_the_documented_ones(shop, capsys):
 
 
 def test_backtest_json_has_every_documented_key(shop, capsys):
-    # The example policy with the live correction on, so its key is present too.
+    # The example policy with the live correction and the accuracy guard on, so their
+    # keys are present too.
     body = yaml.safe_load(Path(POLICY).read_text())
     body["spec"]["liveCorrection"] = {"enabled": True}
+    body["spec"]["accuracyGuard"] = {"enabled": True}
     policy = shop / "live-policy.yaml"
     policy.write_text(yaml.safe_dump(body))
     code, out, err = run(["backtest", "-f", str(policy), "--history", str(shop / "storefront.csv"),
                           "--baseline", "2", "--forecast-method", "seasonal-naive", "--json",
-                          "--sweep", "leadTime=5m", "headroom=0,0.1"], capsys)  # fmt: skip
+                          "--sweep", "leadTime=5m", "headroom=0,0.1",
+                          "accuracyGuard.maxError=0.3"], capsys)  # fmt: skip
     assert code == 0, err
     doc = json.loads(out)
     top, scores, error = tables(section("`floorcast backtest --json`"))
@@ -105,6 +108,9 @@ def test_backtest_json_has_every_documented_key(shop, capsys):
     assert not missing, f"docs/cli.md documents keys backtest --json lacks: {missing}"
     for row in doc["sweep"]:  # the sweep rows carry the scenario scores too
         assert keys(scores) | {"leadTime", "headroom"} <= set(row)
+        assert row["maxError"] == 0.3 and set(row["accuracy_guard"]) == set(doc["accuracy_guard"])
+    guard = doc["accuracy_guard"]
+    assert 0 <= guard["tripped_share"] <= 1 and set(guard["without_guard"]) == keys(scores)
     live = doc["live_correction"]
     assert set(live) == {"active_share", "factor_p10", "factor_median", "factor_p90"}
     assert 0 < live["active_share"] <= 1 and live["factor_p10"] <= live["factor_p90"]

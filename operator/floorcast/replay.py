@@ -5,7 +5,9 @@ perfect-foresight oracle (reference only), each ``--sweep`` point, and the HPA a
 at a ladder of lower targets (``core.frontier``), so the report can say what
 floorcast saves against simply lowering the target, at equal saturation. Floors
 come from ``replay_floors`` (the operator's planning rule, for every forecast and
-row in one call) and every row goes through one vectorized ``hpa_model.simulate``.
+row in one call) and every row goes through one vectorized ``hpa_model.simulate``;
+the floorcast rows are replayed again with the live correction (``replay_live``) and
+the accuracy guard (``replay_guard``) when the policy or the sweep asks.
 """
 
 from __future__ import annotations
@@ -18,7 +20,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from floorcast import plans, replay_live
+from floorcast import plans, replay_guard, replay_live
 from floorcast.core import backtest as bt
 from floorcast.core import correction, frontier, hpa_model, planning
 from floorcast.core.series import Series
@@ -101,6 +103,9 @@ class Result:
     #: (G, T) the live-correction factor of each floorcast row (NaN without enough
     #: evidence), or None when the policy does not correct.
     live_factor: np.ndarray | None = None
+    #: The accuracy guard on the floorcast rows that replay it (``replay_guard``;
+    #: ``rows`` index the grid: 0 the policy's own row, i + 1 sweep point i), or None.
+    guard: replay_guard.Replayed | None = None
 
     def row(self, name: str) -> int:
         return self.names.index(name)
@@ -223,6 +228,11 @@ def run(
                                    ready_delay_steps=delay)  # fmt: skip
         for name in ("replicas", "ready", "scaled"):
             getattr(trace, name)[rows] = getattr(again, name)
+    guarded = None
+    if any(replay_guard.guarded(spec, g) for g in grid):
+        guarded = _guard(spec, rolling, grid, bounds, mins, trace, dem, targets, hpa, live,
+                         demand=demand, start=start, sync=sync, pstep=pstep, setup=setup,
+                         delay=delay)  # fmt: skip
     if extra:
         # Whoever lowers the target raises maxReplicas with it, or the cap, not the
         # target, would decide the rung: the rungs share the cap scaled for the lowest.
@@ -245,7 +255,7 @@ def run(
     table = [
         {"leadTime": pd.Timedelta(k.lead), "headroom": float(k.headroom),
          "holdTime": pd.Timedelta(k.hold), "target_utilization": float(k.target),
-         "serviceLevel": k.service_level,
+         "serviceLevel": k.service_level, **_guard_row(spec, k, guarded, i + 1, sync),
          **scores[4 + i], **_saving(tuned[f"sweep{i}"])}
         for i, k in enumerate(grid[1:])
     ]  # fmt: skip
@@ -270,7 +280,47 @@ def run(
         tuned=tuned,
         plan_step=pstep,
         live_factor=live,
+        guard=guarded,
     )
+
+
+def _guard(spec: PolicySpec, rolling: bt.Rolling, grid: list[Knobs], bounds: plans.Bounds,
+           mins: np.ndarray, trace: hpa_model.Trace, dem: np.ndarray, targets: np.ndarray,
+           hpa: hpa_model.HpaConfig, live: np.ndarray | None, *, demand: np.ndarray,
+           start: pd.Timestamp, sync: pd.Timedelta, pstep: pd.Timedelta, setup: Setup,
+           delay: int) -> replay_guard.Replayed:  # fmt: skip
+    """The floorcast rows that replay the accuracy guard, replayed again with it
+    (``replay_guard``): it observes what the replay without it reported up to each
+    instant; ``mins`` and ``trace`` are updated in place, the scores without the
+    guard kept in ``Replayed.without``."""
+    rows = [2, *range(4, 4 + len(grid) - 1)]
+    rep = replay_guard.replay(
+        spec, rolling, grid, bounds, current=mins[rows], demand=demand,
+        scaled=trace.scaled[rows], sim_start=start, sync=sync, plan_step=pstep,
+        per_replica=setup.per_replica, base_target=setup.target_utilization,
+        interval=setup.interval, factor=live,
+    )  # fmt: skip
+    at = [rows[g] for g in rep.rows]
+    before = hpa_model.Trace(replicas=trace.replicas[at], ready=trace.ready[at],
+                             scaled=trace.scaled[at])  # fmt: skip
+    without = bt.metrics(before, dem[at], per_replica=setup.per_replica, target=targets[at],
+                         sync=sync)  # fmt: skip
+    mins[at] = rep.floors
+    again = hpa_model.simulate(dem[at], rep.floors, per_replica=setup.per_replica, hpa=hpa,
+                               ready_delay_steps=delay)  # fmt: skip
+    for name in ("replicas", "ready", "scaled"):
+        getattr(trace, name)[at] = getattr(again, name)
+    return replace(rep, without=without)
+
+
+def _guard_row(spec: PolicySpec, k: Knobs, rep: replay_guard.Replayed | None, g: int,
+               sync: pd.Timedelta) -> dict[str, Any]:  # fmt: skip
+    """A sweep row's guard keys: its thresholds and figures, null without the guard."""
+    if rep is None or g not in rep.rows:
+        return {"maxError": None, "maxExceedance": None, "accuracy_guard": None}
+    err, exc = replay_guard.thresholds(spec, k)
+    return {"maxError": err, "maxExceedance": exc,
+            "accuracy_guard": replay_guard.summary(rep, rep.rows.index(g), sync)}  # fmt: skip
 
 
 def _check(setup: Setup) -> None:

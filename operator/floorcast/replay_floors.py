@@ -28,13 +28,18 @@ from floorcast.policy import PolicySpec
 class Knobs:
     """One floorcast configuration replayed: the policy's three planning settings and
     the HPA target it runs beside (a floor lets the HPA run hotter), and the
-    ``serviceLevel`` it sizes on (None: the band rule, as a policy without one)."""
+    ``serviceLevel`` it sizes on (None: the band rule, as a policy without one).
+    ``max_error`` / ``max_exceedance``: the accuracy guard's thresholds for this row
+    (``floorcast.replay_guard``); set, the row replays the guard even when the policy
+    does not enable it, so thresholds can be picked from history first."""
 
     lead: timedelta
     headroom: float
     hold: timedelta
     target: float  # HPA target utilization of this row, fraction
     service_level: float | None = None
+    max_error: float | None = None
+    max_exceedance: float | None = None
 
 
 def sized_loads(spec: PolicySpec, rolling: bt.Rolling, grid: Sequence[Knobs]) -> np.ndarray:

@@ -21,7 +21,7 @@ from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
-from floorcast import replay
+from floorcast import replay, replay_guard
 from floorcast.cli.backtest_summary import equal_saturation_line, saving_pct, tuned_summary
 from floorcast.cli.options import PER_REPLICA, REPLICAS, duration
 from floorcast.durations import format_duration, parse_duration
@@ -29,6 +29,7 @@ from floorcast.errors import InputError
 from floorcast.hpa_manifest import load_hpa_file
 from floorcast.policy import load_policy_file
 from floorcast.policy_fields import MAX_SERVICE_LEVEL, MIN_SERVICE_LEVEL
+from floorcast.policy_guard import MAX_GUARD_ERROR
 from floorcast.sources.files import read_history
 from floorcast.timefmt import iso, parse_rfc3339
 
@@ -37,7 +38,8 @@ REPLAY_GAP_FILL = "ffill"
 HELP = "Replay history through the reactive HPA, with and without floors."
 
 
-SWEEP_KEYS = ("leadTime", "headroom", "holdTime", "targetUtilization", "serviceLevel")
+SWEEP_KEYS = ("leadTime", "headroom", "holdTime", "targetUtilization", "serviceLevel",
+              "accuracyGuard.maxError", "accuracyGuard.maxExceedance")
 
 
 def _numbers(key: str, vals: str, parts: list[str], *, lo: float, lo_open: bool) -> list[float]:
@@ -52,12 +54,16 @@ def _numbers(key: str, vals: str, parts: list[str], *, lo: float, lo_open: bool)
 
 def parse_sweep(items: tuple[str, ...], own: replay.Knobs) -> list[replay.Knobs]:
     """``leadTime=2m,5m headroom=0,0.1 holdTime=0,15m targetUtilization=70,85
-    serviceLevel=0.9,0.95`` -> the grid's configurations (every combination; unswept
-    settings keep ``own``'s)."""
+    serviceLevel=0.9,0.95 accuracyGuard.maxError=0.3,0.5`` -> the grid's configurations
+    (every combination; unswept settings keep ``own``'s). A swept guard threshold
+    replays the guard on its rows even when the policy leaves it off."""
     leads, heads, holds, targets = [own.lead], [own.headroom], [own.hold], [own.target]
     levels: list[float | None] = [own.service_level]
+    errors: list[float | None] = [own.max_error]
+    exceeds: list[float | None] = [own.max_exceedance]
     for item in items:
         key, _, vals = item.partition("=")
+        key = key.removeprefix("accuracyGuard.") if key in SWEEP_KEYS else key
         parts = [v for v in vals.split(",") if v]
         if not parts:
             raise InputError(f"--sweep {item!r}: expected NAME=V1,V2,...")
@@ -77,11 +83,20 @@ def parse_sweep(items: tuple[str, ...], own: replay.Knobs) -> list[replay.Knobs]
             levels = [*_numbers(key, vals, parts, lo=MIN_SERVICE_LEVEL, lo_open=False)]
             if any(v > MAX_SERVICE_LEVEL for v in levels):
                 raise InputError(f"--sweep serviceLevel: values must be <= {MAX_SERVICE_LEVEL:g}")
+        elif key in ("maxError", "maxExceedance"):  # the policy fields' bounds
+            top = MAX_GUARD_ERROR if key == "maxError" else 1.0
+            got = _numbers(f"accuracyGuard.{key}", vals, parts, lo=0.0, lo_open=True)
+            if any(v > top for v in got):
+                raise InputError(f"--sweep accuracyGuard.{key}: values must be <= {top:g}")
+            if key == "maxError":
+                errors = [*got]
+            else:
+                exceeds = [*got]
         else:
             raise InputError(f"--sweep: unknown setting {key!r} (use {', '.join(SWEEP_KEYS)})")
-    return [replay.Knobs(ld, h, hd, t, s)
+    return [replay.Knobs(ld, h, hd, t, s, e, x)
             for ld in leads for h in heads for hd in holds for t in targets
-            for s in levels]  # fmt: skip
+            for s in levels for e in errors for x in exceeds]  # fmt: skip
 
 
 def parse_ladder(text: str) -> tuple[float, ...]:
@@ -120,6 +135,8 @@ def _summary(r: replay.Result) -> dict[str, Any]:
     doc["plan_step_seconds"] = r.plan_step.total_seconds()
     if r.live_factor is not None:
         doc["live_correction"] = live_summary(r.live_factor[0])
+    if r.guard is not None and 0 in r.guard.rows:
+        doc["accuracy_guard"] = replay_guard.summary(r.guard, r.guard.rows.index(0), r.sync)
     doc.update(tuned_summary(r))
     if r.sweep:
         doc["sweep"] = [
@@ -278,17 +295,36 @@ def print_summary(r: replay.Result, name: str, target: float, console: Console) 
             f"forecasts: {e['forecasts']} ({', '.join(e['methods'])}), MAE {e['mae']:.3g}, "
             f"MASE {mase}, actual within upper band {e['upper_coverage']:.0%}"
         )
+    if r.guard is not None and 0 in r.guard.rows:
+        console.print(guard_line(replay_guard.summary(r.guard, r.guard.rows.index(0), r.sync)))
     if r.sweep:
         title = f"trade-off (pods start in {format_duration(r.pod_startup)} in every row)"
-        st = Table("leadTime", "holdTime", "headroom", "HPA target", "serviceLevel",
+        guarded = any(row["accuracy_guard"] is not None for row in r.sweep)
+        cols = ("maxError", "maxExceedance", "guard tripped") if guarded else ()
+        st = Table("leadTime", "holdTime", "headroom", "HPA target", "serviceLevel", *cols,
                    "under capacity (min)", "replica-hours", "saving at equal saturation",
                    title=title)  # fmt: skip
         for row in r.sweep:
-            lvl = row["serviceLevel"]
+            lvl, g = row["serviceLevel"], row["accuracy_guard"]
+            gc = (() if not guarded else ("off", "off", "") if g is None else
+                  (f"{row['maxError']:g}", f"{row['maxExceedance']:g}",
+                   f"{g['tripped_share']:.0%} ({g['trips']}×)"))  # fmt: skip
             st.add_row(format_duration(row["leadTime"].to_pytimedelta()),
                        format_duration(row["holdTime"].to_pytimedelta()), f"{row['headroom']:g}",
                        f"{row['target_utilization']:.0%}", "band" if lvl is None else f"{lvl:g}",
-                       f"{row['under_capacity_minutes']:.1f}", f"{row['replica_hours']:.1f}",
+                       *gc, f"{row['under_capacity_minutes']:.1f}", f"{row['replica_hours']:.1f}",
                        saving_pct(row["saving_at_equal_saturation"],
                             row["equal_saturation_found"]))  # fmt: skip
         console.print(st)
+
+
+def guard_line(g: dict[str, Any]) -> str:
+    """The floorcast row's accuracy guard in one sentence (``replay_guard.summary``)."""
+    w = g["without_guard"]
+    spread = ("never judged" if g["error_p50"] is None else
+              f"WAPE median {g['error_p50']:.0%}, p90 {g['error_p90']:.0%}; exceedance "
+              f"median {g['exceedance_p50']:.0%}, p90 {g['exceedance_p90']:.0%}")  # fmt: skip
+    return (f"accuracy guard: tripped {g['trips']}× ({g['tripped_share']:.0%} of the time), "
+            f"judged {g['judged_share']:.0%}; {spread}; without it "
+            f"{w['under_capacity_minutes']:.1f} min under capacity, "
+            f"{w['replica_hours']:.1f} replica-hours")

@@ -144,15 +144,26 @@ def track(actual: np.ndarray, forecast: np.ndarray, upper: np.ndarray, times: np
     """Replay the guard over (W, T) observations at ``times`` (T,) seconds: (tripped,
     error, exceedance), each (W, T), column t from columns ≤ t only, exactly as the
     operator runs ``update`` once per observation."""
+    tripped, r = track_readings(actual, forecast, upper, times, s)
+    return tripped, r.error, r.exceedance
+
+
+def track_readings(actual: np.ndarray, forecast: np.ndarray, upper: np.ndarray,
+                   times: np.ndarray, s: Settings) -> tuple[np.ndarray, Reading]:  # fmt: skip
+    """``track`` with every figure of each reading kept, each (W, T): the back-test
+    (``floorcast.replay_guard``) reports how often the guard could judge and the
+    spread of the judged figures, to help pick thresholds."""
     a = np.atleast_2d(np.asarray(actual, dtype=np.float64))
     f = np.broadcast_to(np.atleast_2d(np.asarray(forecast, dtype=np.float64)), a.shape)
     u = np.broadcast_to(np.atleast_2d(np.asarray(upper, dtype=np.float64)), a.shape)
     n_rows, n = a.shape
     st = State.empty(n_rows, s.window)
     tripped = np.zeros((n_rows, n), dtype=bool)
-    err = np.empty((n_rows, n))
-    exc = np.empty((n_rows, n))
+    out = Reading(*(np.empty((n_rows, n)) for _ in range(4)),
+                  np.empty((n_rows, n), dtype=np.int64))  # fmt: skip
     for i in range(n):
         st, r = update(st, a[:, i], f[:, i], u[:, i], float(times[i]), s)
-        tripped[:, i], err[:, i], exc[:, i] = st.tripped, r.error, r.exceedance
-    return tripped, err, exc
+        tripped[:, i] = st.tripped
+        for name in ("error", "exceedance", "observed", "level", "verdict"):
+            getattr(out, name)[:, i] = getattr(r, name)
+    return tripped, out

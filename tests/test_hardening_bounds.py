@@ -59,8 +59,13 @@ def test_every_duration_has_a_cel_maximum_equal_to_policy_py():
     rules = [r["rule"] for r in spec["x-kubernetes-validations"]]
     rules += [r["rule"] for r in spec["properties"]["forecast"]["x-kubernetes-validations"]]
     limit = format_duration(policy.MAX_DURATION)
-    for field in ("leadTime", "holdTime", "maxAge"):
+    for field in ("holdTime", "maxAge"):
         assert f"duration(self.{field}) <= duration('{limit}')" in rules, field
+    # leadTime also takes ``auto``, which CEL's duration() would refuse: guarded first.
+    assert f"self.leadTime == 'auto' || duration(self.leadTime) <= duration('{limit}')" in rules
+    auto = [r["rule"] for r in spec["properties"]["leadTimeAuto"]["x-kubernetes-validations"]]
+    assert (f"duration(self.max) <= duration('{limit}') && "
+            f"duration(self.margin) <= duration('{limit}')") in auto  # min ≤ max ≤ limit
 
 
 @pytest.mark.parametrize("field", ["leadTime", "holdTime"])

@@ -174,7 +174,9 @@ def test_restore_removes_our_annotations() -> None:
 
 def test_dry_run_event_text_and_status() -> None:
     d = decide(observed(policy("DryRun")))
-    assert d.events[0].message == "would set minReplicas 2 → 7 (peak at 2026-03-02T12:10:00Z)"
+    assert d.events[0].message.startswith(
+        "would set minReplicas 2 → 7 (peak at 2026-03-02T12:10:00Z); why: value 6.5 in the 1m "
+        "from 2026-03-02T12:09:00Z × (1 + headroom 0) / perReplica 1 = 6.5 → 7 replicas")
     assert d.status["proposedFloor"] == 7 and "floor" not in d.status
     assert cond(d, "Applied") == {**cond(d, "Applied"), "status": "False", "reason": "DryRun"}
 

@@ -4,15 +4,22 @@ No I/O and no clock."""
 
 from __future__ import annotations
 
+import logging
+from collections.abc import Mapping
+from typing import Any
+
 import numpy as np
 import pandas as pd
 
 from floorcast.controller.state import FORECAST_INVALID, FORECAST_MISSING, FORECAST_STALE, Observed
 from floorcast.core import planning
 from floorcast.durations import format_duration
+from floorcast.explain import explain
 from floorcast.plans import FloorPlan
 from floorcast.policy import Policy
 from floorcast.timefmt import iso
+
+log = logging.getLogger("floorcast.operator")
 
 
 def peak(plan: FloorPlan, now: pd.Timestamp) -> pd.Timestamp:
@@ -63,3 +70,32 @@ def forecast_problem(obs: Observed, policy: Policy) -> tuple[str, str] | None:
             f"({format_duration(spec.lead_time)})",
         )
     return None
+
+
+def explanation(plan: FloorPlan, corrected: Any, guarded: Any) -> str | None:
+    """The one-line cause of the floor in force (``floorcast.explain``), with the live
+    correction's factor when it acted and the accuracy guard's override when it
+    tripped. None if it cannot be written: an explanation never costs a floor."""
+    try:
+        if corrected.factor is not None:
+            why = explain(plan, corrected.floor, live=corrected.factor, keep=corrected.keep)
+        else:
+            why = explain(plan, plan.floor_now)
+        text = why.text()
+        if guarded.floor != corrected.floor:
+            return (f"accuracy guard tripped: floor {guarded.floor} instead of "
+                    f"{corrected.floor}, which the forecast gives: {text}")  # fmt: skip
+        return text
+    except Exception as e:
+        log.warning("explaining floor %s failed: %r", getattr(guarded, "floor", "?"), e)
+        return None
+
+
+def recorded(prev: Mapping[str, Any], key: str, floor: int, text: str | None) -> str | None:
+    """``status.explanation``: rewritten only when the floor (``key``: floor or
+    proposedFloor) changes, so an instant-by-instant reading of the same floor does not
+    rewrite the status every reconcile; it is the record of why the floor was set."""
+    old = prev.get("explanation")
+    if isinstance(old, str) and prev.get(key) == floor:
+        return old
+    return text

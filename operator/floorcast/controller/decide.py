@@ -20,7 +20,7 @@ from collections.abc import Mapping
 from typing import Any
 
 from floorcast.controller import accuracy, live
-from floorcast.controller.checks import MAX_CLOCK_SKEW, forecast_problem  # noqa: F401
+from floorcast.controller.checks import MAX_CLOCK_SKEW, explanation, forecast_problem, recorded  # noqa: F401
 from floorcast.controller.checks import peak as peak_at
 from floorcast.controller.conditions import APPLIED, FORECAST_AVAILABLE, READY, Condition, render
 from floorcast.controller.ownership import Ownership, ownership, restore
@@ -209,6 +209,8 @@ def decide(obs: Observed) -> Decision:
     if nxt is not None:
         extra["nextChange"] = {"at": iso(nxt.at), "replicas": nxt.new}
     peak = iso(peak_at(plan, obs.now))
+    why_text = explanation(plan, corrected, guarded)
+    why = f"; why: {why_text}" if why_text else ""
     note = f"; {obs.forecast.note}" if obs.forecast.note else ""
     note += f"; {fb}" if (fb := service_level_fallback(plan.spec, plan.forecast)) else ""
     fc_ok = _c(FORECAST_AVAILABLE, True, FORECAST_OK, f"forecast until {iso(series.end)}{note}")
@@ -224,13 +226,14 @@ def decide(obs: Observed) -> Decision:
             )
         current = own.baseline if patch else hpa.min_replicas
         extra["proposedFloor"] = floor
+        extra["explanation"] = recorded(prev, "proposedFloor", floor, why_text)
         said = (
             f"would set minReplicas {current} → {floor} (peak at {peak}{corrected.note})"
             if floor != current
             else f"would keep minReplicas at {current}"
         )
         if prev.get("proposedFloor") != floor:
-            events.append(Event("Normal", DRY_RUN, said))
+            events.append(Event("Normal", DRY_RUN, said + why))
         why = "operator-wide --dry-run" if obs.operator_dry_run else "mode: DryRun"
         conds = [
             _c(READY, True, DRY_RUN, f"{why}; proposed floor {floor}"),
@@ -253,6 +256,7 @@ def decide(obs: Observed) -> Decision:
         )
 
     extra["floor"] = floor
+    extra["explanation"] = recorded(prev, "floor", floor, why_text)
     if floor > own.baseline:
         want = {ANN_BASELINE: str(own.baseline), ANN_FLOOR: str(floor), ANN_POLICY: obs.name}
         same = all(hpa.annotations.get(k) == v for k, v in want.items())
@@ -265,13 +269,13 @@ def decide(obs: Observed) -> Decision:
         patch = restore(own, hpa)  # at the baseline: leave the HPA as its owner had it
     if hpa.min_replicas != floor:
         verb = "raised" if floor > hpa.min_replicas else "lowered"
-        why = (f" (peak at {peak}{corrected.note})" if floor > hpa.min_replicas
-               else f" (baseline {own.baseline}{corrected.note})")  # fmt: skip
+        why_change = (f" (peak at {peak}{corrected.note})" if floor > hpa.min_replicas
+                      else f" (baseline {own.baseline}{corrected.note})")  # fmt: skip
         events.append(
             Event(
                 "Normal",
                 "Floor" + verb.capitalize(),
-                f"{verb} minReplicas {hpa.min_replicas} → {floor}{why}",
+                f"{verb} minReplicas {hpa.min_replicas} → {floor}{why_change}{why}",
             )
         )
     msg = f"floor {floor} (baseline {own.baseline}) in force"

@@ -44,6 +44,8 @@ class Outcome:
     memory: LiveMemory | None
     status: dict[str, Any] | None
     note: str  # for Event text: "" or "; live correction ×1.12"
+    #: The lowest floor the correction could reach (for the explanation), when it acted.
+    keep: int | None = None
 
 
 def observed_load(hpa: HpaState, per_replica: float) -> tuple[float | None, str | None]:
@@ -131,7 +133,7 @@ def _apply(obs: Observed, plan: FloorPlan) -> Outcome:
     status = {"factor": shown, "reason": ACTIVE, "message": msg}
     floor = int(fixed[0])
     note = f"; live correction ×{f:.2f}, plan {plan.floor_now}" if floor != plan.floor_now else ""
-    return Outcome(floor, f, memory, status, note)
+    return Outcome(floor, f, memory, status, note, keep)
 
 
 def _dur(td: Any) -> str:

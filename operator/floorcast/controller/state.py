@@ -33,6 +33,7 @@ STATUS_KEYS = (
     "accuracy",
     "addedReplicaHours",
     "leadTime",
+    "explanation",
     "conditions",
 )
 

@@ -59,15 +59,19 @@ def living_env(cp: ControlPlane, tmp: Path, api: k8s.ApiClient) -> Iterator[Env]
         core.delete_namespace(ns)
 
 
-def create_service(env: Env, name: str, *, replicas: int = HPA_MIN) -> None:
+def create_service(env: Env, name: str, *, replicas: int = HPA_MIN,
+                   pod_annotations: dict[str, str] | None = None) -> None:  # fmt: skip
     """A Deployment of 1-core Pods and an HPA on CPU at :data:`HPA_TARGET`."""
     labels = {"app": name}
+    template_meta: dict[str, Any] = {"labels": labels}
+    if pod_annotations:
+        template_meta["annotations"] = pod_annotations
     container = {"name": "app", "image": "registry.k8s.io/pause:3.10",
                  "resources": {"requests": {"cpu": str(POD_CPU), "memory": "64Mi"}}}  # fmt: skip
     k8s.AppsV1Api(env.api).create_namespaced_deployment(env.namespace, {
         "apiVersion": "apps/v1", "kind": "Deployment", "metadata": {"name": name},
         "spec": {"replicas": replicas, "selector": {"matchLabels": labels},
-                 "template": {"metadata": {"labels": labels},
+                 "template": {"metadata": template_meta,
                               "spec": {"containers": [container],
                                        "terminationGracePeriodSeconds": 0}}},
     })  # fmt: skip

@@ -80,8 +80,14 @@ def test_status_has_the_design_fields(schema):
     assert set(status) == {
         "floor", "baseline", "proposedFloor", "nextChange", "forecastGenerated",
         "lastAppliedTime", "observedGeneration", "conditions", "liveCorrection",
-        "accuracy", "addedReplicaHours",
+        "accuracy", "addedReplicaHours", "leadTime", "explanation",
     }  # fmt: skip
+    # The API server prunes what the schema does not name: every key the operator
+    # writes must be here, or it is silently dropped.
+    from floorcast.controller.state import STATUS_KEYS
+
+    assert set(STATUS_KEYS) == set(status)
+    assert set(status["leadTime"]["properties"]) == {"value", "source", "podStartup", "samples"}
     assert set(status["liveCorrection"]["properties"]) == {"factor", "reason", "message"}
     cond = status["conditions"]["items"]
     # Kubernetes API conventions' condition shape (metav1.Condition).

@@ -20,6 +20,9 @@ from floorcast.policy import Policy
 from floorcast.timefmt import iso
 
 log = logging.getLogger("floorcast.operator")
+#: ``status.explanation``'s maxLength in the CRD is 4096; the line is ~200 characters,
+#: and a cut one never makes the status write fail.
+EXPLANATION_MAX = 3000
 
 
 def peak(plan: FloorPlan, now: pd.Timestamp) -> pd.Timestamp:
@@ -81,7 +84,7 @@ def explanation(plan: FloorPlan, corrected: Any, guarded: Any) -> str | None:
             why = explain(plan, corrected.floor, live=corrected.factor, keep=corrected.keep)
         else:
             why = explain(plan, plan.floor_now)
-        text = why.text()
+        text = why.text()[:EXPLANATION_MAX]
         if guarded.floor != corrected.floor:
             return (f"accuracy guard tripped: floor {guarded.floor} instead of "
                     f"{corrected.floor}, which the forecast gives: {text}")  # fmt: skip

@@ -39,7 +39,8 @@ def raised(env: Env, name: str = "p") -> None:
     env.wait(min_replicas(env, 7), "HPA minReplicas raised to 7")
 
 
-def test_enforce_raises_floor_and_hpa_scales_deployment_then_delete_restores(env: Env) -> None:
+def test_enforce_raises_floor_and_hpa_scales_deployment_then_delete_restores(
+        env: Env, control_plane) -> None:  # fmt: skip
     raised(env)
     assert annotations(env) == {"floorcast.dev/baseline": "2", "floorcast.dev/applied-floor": "7",
                                 "floorcast.dev/policy": "p"}  # fmt: skip
@@ -52,6 +53,14 @@ def test_enforce_raises_floor_and_hpa_scales_deployment_then_delete_restores(env
     assert st["baseline"] == BASELINE
     assert env.condition("p")["status"] == "True"
     assert env.events("FloorRaised"), "an Event for the raise"
+    # The decision explains itself (docs/policy.md, "Why this floor"), by hand: the peak
+    # 6.5 cores × (1 + 0) / perReplica 1 = 6.5 → 7; in the Event, status and describe.
+    why = "value 6.5 cores in the 1m from "
+    msg = env.events("FloorRaised")[-1].message
+    assert "; why: " + why in msg and msg.endswith("= 6.5 → 7 replicas → floor 7"), msg
+    assert st["explanation"].startswith(why) and st["explanation"] in msg
+    described = control_plane.kubectl("describe", "fsp", "p", "-n", env.namespace).stdout
+    assert "why: " + why in " ".join(described.split()), described  # the decision record
     # Idle: two more timer ticks (2 s) write nothing to the policy.
     rv = env.policy("p")["metadata"]["resourceVersion"]
     before = env.policy("p")

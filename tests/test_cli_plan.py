@@ -309,3 +309,21 @@ def test_demo_offline_plans_every_service_ahead_of_its_peaks(tmp_path):
     t = sf.schedule.times
     at_1950 = int(np.flatnonzero(t == pd.Timestamp("2026-11-30T19:50:00Z"))[0])
     assert sf.schedule.floor[0, at_1950] >= 12
+
+
+def test_lead_time_auto_plans_with_the_fallback_and_says_so(tmp_path, capsys):
+    # With no cluster there are no Pods to measure: the fallback lead is the default 5m
+    # (docs/policy.md, "Measured lead time"), and the human output says so.
+    policy = tmp_path / "p.yaml"
+    policy.write_text(POLICY.replace("leadTime: 10m", "leadTime: auto"))
+    fc = write_forecast(tmp_path / "f.csv", [1.0] * 12 + [5.0] * 12)
+    argv = ["plan", "-f", str(policy), "--forecast", str(fc), "--at", "2026-12-01T00:00:00Z",
+            "--baseline", "1", "--hpa-max", "10"]  # fmt: skip
+    code, out, _ = run(argv, capsys)
+    assert code == 0 and "leadTime auto: planned with the fallback lead 5m" in out
+    code, out, _ = run([*argv, "--json"], capsys)
+    first = json.loads(out)["changes"][0]
+    # The ramp to 5.0 starts after 00:55 (the minute from 00:55 reaches 1.8: needs 2),
+    # raised 5 minutes ahead, not the 10 the policy's old fixed lead gave.
+    assert (first["at"], first["cause_at"], first["to"]) == (
+        "2026-12-01T00:50:00Z", "2026-12-01T00:55:00Z", 2), first

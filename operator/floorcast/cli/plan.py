@@ -15,6 +15,7 @@ from rich.console import Console
 from rich.table import Table
 
 from floorcast.cli.options import PER_REPLICA, REPLICAS
+from floorcast.durations import format_duration
 from floorcast.plans import FloorPlan, plan_policy, planning_label
 from floorcast.policy import load_policy_file
 from floorcast.sources.files import read_forecast
@@ -108,6 +109,10 @@ def print_plan(result: FloorPlan, name: str, console: Console) -> None:
         f" {result.per_replica:g} per replica)"
     )
     console.print(f"sized on {planning_label(result.spec, result.forecast)}", markup=False)
+    if result.spec.lead_time_auto is not None:  # nothing to measure without a cluster
+        console.print(f"leadTime auto: planned with the fallback lead "
+                      f"{format_duration(result.spec.lead_time)} (the operator measures the "
+                      "target's Pods)", markup=False)  # fmt: skip
     if not result.changes:
         console.print("no floor changes within the forecast")
         return

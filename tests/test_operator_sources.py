@@ -55,3 +55,33 @@ def test_url_unreachable_allowed_host_is_missing() -> None:
 def test_status_patch_removes_keys_we_no_longer_want() -> None:
     body = status_patch({"proposedFloor": 7}, {"floor": 3, "proposedFloor": 2, "other": 1})
     assert body == {"status": {"floor": None, "proposedFloor": 7}}
+
+
+def _merge(target, patch):
+    """JSON Merge Patch as RFC 7386 §2 writes it in pseudo-code."""
+    if not isinstance(patch, dict):
+        return patch
+    out = dict(target) if isinstance(target, dict) else {}
+    for k, v in patch.items():
+        if v is None:
+            out.pop(k, None)
+        else:
+            out[k] = _merge(out.get(k), v)
+    return out
+
+
+def test_status_patch_removes_a_figure_a_nested_block_no_longer_has() -> None:
+    """A guard that can no longer judge publishes no figures; the patch must remove
+    the old ones, or they stay stale beside "not judged now" and the status never
+    equals the decision's again (found on the living cluster, e2e/test_living_guard.py)."""
+    current = {"floor": 2, "accuracy": {"error": 1.5, "exceedance": 0.0, "reason": "A",
+                                        "message": "WAPE 150%"}}  # fmt: skip
+    desired = {"floor": 2, "accuracy": {"reason": "A", "message": "not judged now"}}
+    body = status_patch(desired, current)
+    assert body["status"]["accuracy"] == {"error": None, "exceedance": None, "reason": "A",
+                                          "message": "not judged now"}  # fmt: skip
+    assert _merge({**current, "other": 1}, body["status"]) == {**desired, "other": 1}
+    # Nothing else changes shape: a new block, a scalar, a block replaced by a scalar.
+    assert status_patch({"nextChange": {"at": "t", "replicas": 3}}, {})["status"] == {
+        "nextChange": {"at": "t", "replicas": 3}}  # fmt: skip
+    assert _merge(current, status_patch({"accuracy": "x"}, current)["status"]) == {"accuracy": "x"}

@@ -79,6 +79,7 @@ def test_cost_counts_replica_hours_above_the_hpa_alone():
     ("maxError", 0, "maxError"), ("maxError", 11, "maxError"),
     ("maxExceedance", 1.5, "maxExceedance"), ("window", "30s", "at least 1m"),
     ("action", "Panic", "Baseline, LiveCorrected"), ("recoverAfter", "1d", "recoverAfter"),
+    ("action", "", "Baseline, LiveCorrected"),  # the CRD's enum refuses "" too
 ])  # fmt: skip
 def test_out_of_range_thresholds_are_refused_with_the_field(field, value, says):
     spec = {"targetRef": {"name": "web"}, "forecast": {"url": "https://f.example/x"},
@@ -86,3 +87,22 @@ def test_out_of_range_thresholds_are_refused_with_the_field(field, value, says):
     with pytest.raises(PolicyError, match=says) as e:
         parse_spec(spec, source="t")
     assert f"spec.accuracyGuard.{field}" in str(e.value)
+
+
+@pytest.mark.parametrize(("prev", "value", "shown"), [
+    (0.30, 0.33, 0.30),  # within a step, same side of 0.5: the old figure stays
+    (0.30, 0.36, 0.36),  # a step or more: the new figure, rounded
+    (0.49, 0.503, 0.51),  # tripped at 50.3 %: neither the old 0.49 nor round()'s 0.50
+    (0.52, 0.49, 0.49),  # back within the limit: not the old 0.52
+    (None, 0.5, 0.5),  # at the limit is within it (the guard trips above it)
+    (None, 0.5001, 0.51),
+])  # fmt: skip
+def test_a_published_figure_stays_on_its_side_of_the_threshold(prev, value, shown):
+    """Seen on the living cluster (e2e/test_living_guard.py): the guard tripped on a
+    WAPE just above 50 % while the step-published figure still said 49 %, so the
+    condition read "WAPE 49% (max 50%)"; the figure must agree with the verdict."""
+    from floorcast.controller.accuracy import published_figure
+
+    got = published_figure({"error": prev} if prev is not None else {}, "error", value, 0.5)
+    assert got == pytest.approx(shown)
+    assert (got > 0.5) == (value > 0.5)

@@ -62,7 +62,10 @@ def read_guard(r: _Reader, s: _M) -> AccuracyGuard:
     if window < MIN_GUARD_WINDOW:
         r.fail(f"{p}.window", f"{format_duration(window)} is too short; expected at least "
                               f"{format_duration(MIN_GUARD_WINDOW)}")  # fmt: skip
-    action = g.get("action") or DEFAULT_GUARD_ACTION
+    # Only an absent (or null) action takes the default: "" is refused, as the CRD's
+    # enum refuses it (e2e/test_policy_crd.py holds the two verdicts together).
+    action = g.get("action")
+    action = DEFAULT_GUARD_ACTION if action is None else action
     if action not in GUARD_ACTIONS:
         r.fail(f"{p}.action", f"got {_describe(action)}; expected one of "
                               f"{', '.join(GUARD_ACTIONS)}")  # fmt: skip

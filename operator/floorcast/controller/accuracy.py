@@ -14,6 +14,7 @@ below the baseline); no data never trips it; a bug here leaves the floor as plan
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from typing import Any
@@ -69,6 +70,22 @@ def _pub(prev: Any, key: str, value: float, step: float) -> float:
     if isinstance(old, int | float) and abs(old - value) < step:
         return float(old)
     return round(value, 2)
+
+
+def published_figure(prev: Any, key: str, value: float, limit: float) -> float:
+    """A guard figure as ``status.accuracy`` shows it: moved in steps of
+    ``PUBLISH_STEP`` and rounded to 0.01, but always on the same side of its threshold
+    as the exact value, so the status never reads "WAPE 49 % (max 50 %)" beside a
+    tripped guard (seen on the living cluster: e2e/test_living_guard.py)."""
+    shown = _pub(prev, key, value, PUBLISH_STEP)
+    if (shown > limit) == (value > limit):
+        return shown
+    shown = round(value, 2)
+    if value > limit and shown <= limit:
+        return math.ceil(value * 100) / 100
+    if value <= limit < shown:
+        return math.floor(value * 100) / 100
+    return shown
 
 
 def _was_tripped(status: Mapping[str, Any]) -> bool:
@@ -134,8 +151,9 @@ def _apply(obs: Observed, plan: plans.FloorPlan, corrected: Outcome) -> Result:
     status: dict[str, Any] = {}
     figures = ""
     if r.verdict[0] != guard.UNJUDGED:
-        status = {"error": _pub(pa, "error", err, PUBLISH_STEP),
-                  "exceedance": _pub(pa, "exceedance", exc, PUBLISH_STEP)}  # fmt: skip
+        status = {"error": published_figure(pa, "error", err, g.max_error),
+                  "exceedance": published_figure(pa, "exceedance", exc,
+                                                 g.max_exceedance)}  # fmt: skip
         figures = (f"WAPE {status['error']:.0%} (max {g.max_error:.0%}), load above the "
                    f"sized floor {status['exceedance']:.0%} of the time (max "
                    f"{g.max_exceedance:.0%}) over {_dur(g.window)}")  # fmt: skip

@@ -23,10 +23,24 @@ MERGE_PATCH = "application/merge-patch+json"
 
 
 def status_patch(desired: Mapping[str, Any], current: Mapping[str, Any]) -> dict[str, Any]:
-    """Merge-patch body that makes our keys equal ``desired`` (null removes a key)."""
+    """Merge-patch body that makes our keys equal ``desired`` (null removes a key).
+
+    Nested blocks too: a merge patch merges mappings (RFC 7386), so a figure the
+    decision no longer publishes (``accuracy.error`` once the guard cannot judge)
+    would otherwise stay behind, stale, and the status would never compare equal
+    again, rewriting it on every reconcile."""
     body: dict[str, Any] = {k: None for k in STATUS_KEYS if k in current and k not in desired}
-    body.update(desired)
+    body.update({k: _replace(v, current.get(k)) for k, v in desired.items()})
     return {"status": body}
+
+
+def _replace(want: Any, have: Any) -> Any:
+    """``want``, with a null for every key of the mapping ``have`` that it drops."""
+    if not isinstance(want, Mapping) or not isinstance(have, Mapping):
+        return want
+    out: dict[str, Any] = {k: None for k in have if k not in want}
+    out.update({k: _replace(v, have.get(k)) for k, v in want.items()})
+    return out
 
 
 def write_status(api: k8s.ApiClient, namespace: str, name: str, desired: Mapping[str, Any],

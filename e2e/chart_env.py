@@ -30,6 +30,7 @@ VALUE_SETS: dict[str, dict[str, Any]] = {
         "watchNamespaces": ["shop", "search"],
         "dryRun": False,
         "urlAllowList": ["forecasts.example.internal"],
+        "prometheusUrl": "http://prometheus.monitoring:9090",
         "logFormat": "json",
         "extraLabels": {"team": "capacity"},
     },

@@ -58,7 +58,7 @@ def test_default_render_is_hardened_and_dry_run(helm: Helm) -> None:
     args = op["container"]["args"]
     assert "--dry-run" in args and "--all-namespaces" in args
     assert "--liveness-port=8081" in args and "--metrics-port=8080" in args
-    assert not any(a.startswith("--allow-url-host") for a in args)
+    assert not any(a.startswith(("--allow-url-host", "--prometheus-url")) for a in args)
     kinds = {d["kind"] for d in docs(out)}
     assert kinds == {"ServiceAccount", "ClusterRole", "ClusterRoleBinding", "Service",
                      "Deployment"}  # fmt: skip
@@ -87,6 +87,7 @@ def test_namespaced_mode_has_a_role_per_namespace_and_nothing_cluster_wide(helm:
     assert args[:2] == ["--namespace=shop", "--namespace=search"]
     assert "--dry-run" not in args and "--all-namespaces" not in args
     assert "--allow-url-host=forecasts.example.internal" in args and "--log-format=json" in args
+    assert "--prometheus-url=http://prometheus.monitoring:9090" in args
     assert all(d["metadata"]["labels"]["team"] == "capacity" for d in docs(out))
 
 
@@ -152,6 +153,7 @@ def test_forecast_shards_partition_the_workloads() -> None:
         ({"forecast": {"enabled": True}}, "forecast"),
         ({"forecast": {"shards": 0}}, "shards"),
         ({"replicas": 2}, "replicas"),
+        ({"prometheusUrl": "prometheus:9090"}, "prometheusUrl"),
         ({"metrics": {"port": 70000}}, "port"),
     ],
 )

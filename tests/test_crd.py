@@ -179,6 +179,8 @@ def test_string_lengths_are_the_crd_max_lengths(schema):
             forecast={"configMapRef": {"name": "fc", "key": "k" * n}}),
         "forecast.url": lambda n: _doc(forecast={"url": "https://f.example/" + "x" * (n - 18)}),
         "plannedEvents[].name": lambda n: _doc(plannedEvents=[{**event, "name": "e" * n}]),
+        "observedLoad.prometheusQuery": lambda n: _doc(
+            observedLoad={"prometheusQuery": "sum(up)" + " " * (n - 7)}),
     }  # fmt: skip
     checked = {
         p

@@ -52,6 +52,7 @@ from floorcast.policy_fields import (  # noqa: F401  (MAX_* and PolicyError re-e
     _Rule,
 )
 from floorcast.policy_guard import AccuracyGuard, guard_defaults, read_guard
+from floorcast.policy_observe import ObservedLoad, read_observed_load
 
 API_VERSION = "floorcast.dev/v1alpha1"
 KIND = "ForecastScalingPolicy"
@@ -94,7 +95,7 @@ _SPEC_FIELDS = (
     "targetRef", "forecast", "capacity", "leadTime", "holdTime", "headroom",
     "useUpperBound", "minReplicas", "maxReplicas", "mode", "plannedEvents", "liveCorrection",
     "serviceLevel", "accuracyGuard",
-    "leadTimeAuto",
+    "leadTimeAuto", "observedLoad",
 )  # fmt: skip
 _DNS_SUBDOMAIN = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?(\.[a-z0-9]([-a-z0-9]*[a-z0-9])?)*$")
 _DNS_LABEL = re.compile(r"^[a-z0-9]([-a-z0-9]*[a-z0-9])?$")
@@ -172,6 +173,8 @@ class PolicySpec:
     #: Set for ``leadTime: auto``; ``lead_time`` then holds the fallback lead, which
     #: the operator replaces with the measured one (controller/leadtime.py).
     lead_time_auto: LeadTimeAuto | None = None
+    #: Where the observed load comes from (policy_observe.py): the HPA's status or a query.
+    observed_load: ObservedLoad = ObservedLoad()  # noqa: RUF009 (frozen)
 
 
 @dataclass(frozen=True)
@@ -250,6 +253,7 @@ def parse_spec(spec: _M, *, source: str = "policy") -> PolicySpec:
         live_correction=_live_correction(r, s),
         accuracy_guard=read_guard(r, s),
         lead_time_auto=auto,
+        observed_load=read_observed_load(r, s),
     )
 
 

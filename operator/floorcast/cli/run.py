@@ -85,6 +85,9 @@ def _interval(value: str, flag: str = "--interval") -> float:
 @click.option("--https-only", is_flag=True, help="Refuse plain-http forecast URLs.")
 @click.option("--ca-bundle", type=click.Path(dir_okay=False, exists=True), default=None,
               help="PEM file of CAs trusted for https forecast URLs [system store].")
+@click.option("--prometheus-url", default=None, metavar="URL",
+              help="Prometheus-compatible server that policies' observedLoad.prometheusQuery "
+              "is sent to (instant queries); none by default.")
 @click.option(
     "--max-api-connections",
     type=CONNECTIONS,
@@ -98,7 +101,7 @@ def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interv
         hosts: tuple[str, ...], metrics_port: int, liveness_port: int, log_format: str,
         kubeconfig: str | None, lease_name: str | None, lease_namespace: str | None,
         identity: str | None, https_only: bool, ca_bundle: str | None,
-        max_api_connections: int) -> None:  # fmt: skip
+        prometheus_url: str | None, max_api_connections: int) -> None:  # fmt: skip
     from floorcast.controller.app import run as run_operator
     from floorcast.controller.settings import Settings, parse_url_rule
 
@@ -116,6 +119,13 @@ def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interv
     if seconds < 1:
         raise click.BadParameter("must be at least 1s", param_hint="--interval")
     observe = _interval(observe_interval, "--observe-interval")
+    if prometheus_url is not None:
+        from floorcast.sources.prometheus_instant import query_url
+
+        try:
+            query_url(prometheus_url)
+        except InputError as e:
+            raise click.BadParameter(e.problem, param_hint="--prometheus-url") from None
     if observe < 1:
         raise click.BadParameter("must be at least 1s", param_hint="--observe-interval")
     run_operator(Settings(
@@ -125,4 +135,5 @@ def run(dry_run: bool, namespaces: tuple[str, ...], all_namespaces: bool, interv
         log_format=log_format, kubeconfig=kubeconfig, lease_name=lease_name,
         lease_namespace=lease_namespace, identity=identity,
         max_api_connections=max_api_connections, https_only=https_only, ca_bundle=ca_bundle,
+        prometheus_url=prometheus_url,
     ))  # fmt: skip

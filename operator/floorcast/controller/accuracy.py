@@ -1,12 +1,13 @@
 """The accuracy guard and the floor's cost at reconcile time (docs/policy.md,
 "Accuracy guard" and "Cost of the floor").
 
-Both read the same observation as the live correction (``live.observed_load``: the
-HPA's status turned into load) and feed the pure cores (``core.guard``,
-``core.floor_cost``). No I/O and no clock: the memory comes in with
-``Observed.guard`` and goes out with ``Decision.guard_memory``; the reconcile adapter
-keeps it per policy. After a restart the memory is gone; a guard the status still
-shows tripped starts tripped (the safe side), and the cost starts from zero.
+Both read the same observation as the live correction (``live.reading``: the
+HPA's status turned into load, or the policy's ``observedLoad.prometheusQuery``) and
+feed the pure cores (``core.guard``, ``core.floor_cost``). No I/O and no clock: the
+memory comes in with ``Observed.guard`` and goes out with ``Decision.guard_memory``;
+the reconcile adapter keeps it per policy. After a restart the memory is gone; a guard
+the status still shows tripped starts tripped (the safe side), and the cost starts
+from zero.
 
 Safety: a tripped guard only lowers the floor to the policy's lower bound (never
 below the baseline); no data never trips it; a bug here leaves the floor as planned.
@@ -24,7 +25,7 @@ import pandas as pd
 
 from floorcast import plans
 from floorcast.controller.conditions import FORECAST_ACCURATE, Condition
-from floorcast.controller.live import Outcome, observed_load
+from floorcast.controller.live import Outcome, reading
 from floorcast.controller.state import Event, Observed
 from floorcast.core import floor_cost, guard
 from floorcast.durations import format_duration
@@ -106,7 +107,7 @@ def apply(obs: Observed, plan: plans.FloorPlan, corrected: Outcome) -> Result:
 
 
 def _apply(obs: Observed, plan: plans.FloorPlan, corrected: Outcome) -> Result:
-    spec, g = plan.spec, plan.spec.accuracy_guard
+    g = plan.spec.accuracy_guard
     now = obs.now.value / 1e9
     window = pd.Timedelta(g.window).total_seconds()
     mem = obs.guard if isinstance(obs.guard, Memory) else None
@@ -115,10 +116,7 @@ def _apply(obs: Observed, plan: plans.FloorPlan, corrected: Outcome) -> Result:
         if _was_tripped(obs.status or {}):  # restart: keep the safe side
             gs = replace(gs, tripped=np.array([True]), tripped_at=np.array([now]))
         mem = Memory(gs, mem.cost if mem else floor_cost.State.empty(1), window)
-    load, why = observed_load(obs.hpa, plan.per_replica)
-    last = obs.hpa.last_scale_time
-    settling = last is not None and obs.now - last < pd.Timedelta(spec.lead_time)
-    sample = np.nan if load is None or settling else load
+    sample, why = reading(obs, plan)  # the HPA's status, or observedLoad's query
     settings = guard.Settings(window=window, max_error=g.max_error,
                               max_exceedance=g.max_exceedance,
                               recover_after=pd.Timedelta(g.recover_after).total_seconds(),

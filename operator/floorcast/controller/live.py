@@ -1,6 +1,7 @@
 """The live level correction at reconcile time (docs/policy.md, "Live correction").
 
-``decide`` plans the floor as before; this module turns the HPA's own status into the
+``decide`` plans the floor as before; this module turns the HPA's own status (or the
+answer of the policy's ``observedLoad.prometheusQuery``, ``Observed.query_load``) into the
 load it reports (current average CPU utilization / the HPA's target × current
 replicas × perReplica: perReplica is the load one pod carries at the target), feeds it
 to the EWMA in ``core.correction`` — the same function the back-test replays — and
@@ -63,6 +64,24 @@ def observed_load(hpa: HpaState, per_replica: float) -> tuple[float | None, str 
     return util * hpa.current_replicas * per_replica, None
 
 
+def reading(obs: Observed, plan: FloorPlan) -> tuple[float, str | None]:
+    """The sample the live correction and the accuracy guard feed their cores (NaN
+    when there is none) and why it is unusable: the answer of the policy's
+    ``observedLoad.prometheusQuery`` when it has one, else the HPA's status.
+
+    Within leadTime of the HPA's last scale, new pods are counted in currentReplicas
+    but not yet in the utilization average, so utilization × replicas would overstate
+    and the HPA's reading is skipped; a query measures the load itself and is not."""
+    if plan.spec.observed_load.prometheus_query is not None:
+        load, why = obs.query_load or (None, "spec.observedLoad.prometheusQuery was not "
+                                             "evaluated")  # fmt: skip
+        return (np.nan if load is None else load), why
+    load, why = observed_load(obs.hpa, plan.per_replica)
+    last = obs.hpa.last_scale_time
+    settling = last is not None and obs.now - last < pd.Timedelta(plan.spec.lead_time)
+    return (np.nan if load is None or settling else load), why
+
+
 def _published(prev: Any, f: float) -> float:
     old = prev.get("factor") if isinstance(prev, dict) else None
     if isinstance(old, int | float) and abs(old - f) < PUBLISH_STEP:
@@ -94,13 +113,8 @@ def _apply(obs: Observed, plan: FloorPlan) -> Outcome:
         state = correction.State(np.array([mem.observed]), np.array([mem.forecast]),
                                  np.array([mem.weight]))  # fmt: skip
     dt = (obs.now - mem.at).total_seconds() if mem else MAX_STEP_SECONDS
-    load, why = observed_load(obs.hpa, plan.per_replica)
-    # Within leadTime of the HPA's last scale, new pods are counted in currentReplicas
-    # but not yet in the utilization average: utilization × replicas would overstate.
-    last = obs.hpa.last_scale_time
-    settling = last is not None and obs.now - last < pd.Timedelta(plan.spec.lead_time)
+    sample, why = reading(obs, plan)
     fc = point_at(plan)
-    sample = np.nan if load is None or settling else load
     state = correction.update(state, np.array([sample]), np.array([fc]), dt,
                               pd.Timedelta(lc.half_life).total_seconds(),
                               max_step_seconds=MAX_STEP_SECONDS)  # fmt: skip

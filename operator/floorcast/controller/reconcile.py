@@ -33,6 +33,7 @@ from floorcast.controller import leadtime, metrics
 from floorcast.controller.capacity import per_replica_from_hpa
 from floorcast.controller.decide import conflict_winner
 from floorcast.controller.failsafe import decide_safely, fail_safe
+from floorcast.controller.query_load import QueryMemory, query_load
 from floorcast.controller.schedule import Periods, next_wake
 from floorcast.controller.settings import FORECAST_LABEL, Settings
 from floorcast.controller.state import (
@@ -97,6 +98,8 @@ class Runtime:
     finalized: set[tuple[str, str]] = field(default_factory=set)
     #: ``leadTime: auto``: the last Pod start-ups listed per policy (controller/leadtime.py).
     lead: leadtime.LeadMemory = field(default_factory=leadtime.LeadMemory)
+    #: ``observedLoad.prometheusQuery``: the last answer per policy (controller/query_load.py).
+    query: QueryMemory = field(default_factory=QueryMemory)
 
     def lock(self, namespace: str, name: str) -> threading.Lock:
         with self._guard:
@@ -111,6 +114,7 @@ class Runtime:
             self.wake_in.pop((namespace, name), None)
             self.finalized.discard((namespace, name))
         self.lead.forget((namespace, name))
+        self.query.forget((namespace, name))
         metrics.forget(namespace, name)
 
 
@@ -197,14 +201,17 @@ def observe(rt: Runtime, body: Mapping[str, Any], *, deleting: bool,
                                      lambda n, t: read_pod_times(
                                          rt.api, n, t, timeout=rt.settings.api_timeout_seconds),
                                      now=time.monotonic())  # fmt: skip
+    now = pd.Timestamp.now(tz="UTC").floor("s")
+    load = query_load(rt.settings, rt.query, (ns, name), pol if needs else None, now=now,
+                      clock=time.monotonic())  # fmt: skip
     return Observed(
-        name=name, namespace=ns, policy=pol, hpa=hpa, forecast=forecast,
-        now=pd.Timestamp.now(tz="UTC").floor("s"),
+        name=name, namespace=ns, policy=pol, hpa=hpa, forecast=forecast, now=now,
         status=rt.written.get((ns, name)) or plain(body.get("status") or {}),
         generation=meta.get("generation"), policy_error=err,
         operator_dry_run=rt.settings.dry_run, conflict_with=conflict, deleting=deleting,
         per_replica=per_replica, per_replica_error=per_replica_error,
         live=rt.live.get((ns, name)), guard=rt.guard.get((ns, name)), lead=lead,
+        query_load=load,
     )  # fmt: skip
 
 

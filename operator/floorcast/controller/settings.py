@@ -93,6 +93,9 @@ class Settings:
     #: signed by a private CA (None: the system's trust store).
     https_only: bool = False
     ca_bundle: str | None = None
+    #: The Prometheus-compatible server a policy's ``observedLoad.prometheusQuery`` is
+    #: sent to (controller/query_load.py); None: such a policy's query is not evaluated.
+    prometheus_url: str | None = None
 
     @property
     def all_namespaces(self) -> bool:

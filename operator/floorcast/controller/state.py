@@ -121,6 +121,9 @@ class Observed:
     #: ``leadTime: auto``: the measured lead's report (controller/leadtime.py ``Lead``);
     #: the policy above already plans with its lead.
     lead: Any = None
+    #: ``observedLoad.prometheusQuery``'s answer (controller/query_load.py): the load, or
+    #: None and why; None when the policy has no query (the HPA's status is read).
+    query_load: tuple[float | None, str | None] | None = None
 
 
 @dataclass(frozen=True)

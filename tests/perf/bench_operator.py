@@ -247,7 +247,10 @@ def main() -> None:
         began = time.monotonic()
         while (ready := ready_count(api)) < n:
             if proc.poll() is not None or time.monotonic() - began > 600:
-                raise SystemExit(f"operator: {ready}/{n} Ready; rc={proc.poll()}")
+                log.flush()
+                tail = Path(log.name).read_text().splitlines()[-30:]
+                raise SystemExit(f"operator: {ready}/{n} Ready; rc={proc.poll()}; "
+                                 f"RSS {rss_mib(proc.pid)}; log tail:\n" + "\n".join(tail))
             time.sleep(2)
         ready_s = time.monotonic() - began
         print(f"all {n} policies Ready {ready_s:.1f}s after start", flush=True)

@@ -121,11 +121,10 @@ class World:
         except AssertionError as e:
             raise AssertionError(f"{e}\n" + "\n".join(self.timeline[-40:])) from None
 
-    def metric(self) -> float | None:
+    def metric(self, name: str = "floorcast_forecast_error_ratio") -> float | None:
         text = urllib.request.urlopen(f"http://127.0.0.1:{self.port}/metrics",
                                       timeout=10).read().decode()  # fmt: skip
-        m = re.search(r'floorcast_forecast_error_ratio\{namespace="[^"]+",policy="'
-                      + NAME + r'"\} (\S+)', text)  # fmt: skip
+        m = re.search(name + r'\{namespace="[^"]+",policy="' + NAME + r'"\} (\S+)', text)
         return float(m.group(1)) if m else None
 
 
@@ -182,6 +181,13 @@ def test_a_departing_load_trips_the_guard_and_the_baseline_comes_back(world: Wor
     assert any(f"→ {HPA_MIN}" in e.message for e in lowered), [e.message for e in lowered]
     first = world.metric()
     assert first is not None and first > MAX_ERROR, first
+    # The floor's cost (docs/policy.md, "Cost of the floor"), by hand: from the moment
+    # the HPA reports the low load until the trip, the floor holds 4 where the HPA alone
+    # wants ceil(4 × 25 % / 70 %) = 2: 2 replicas for the 33–55 s before the trip,
+    # 0.018–0.031 replica-hours; before the drop the HPA alone wanted the floor's 4.
+    added = world.metric("floorcast_floor_added_replica_hours")
+    assert added is not None and 0.005 <= added <= 0.08, added
+    print(f"floorcast_floor_added_replica_hours {added:.4f} at the trip", file=sys.stderr)
     # Once the window holds only the departed load the exact WAPE is the hand 150 %.
     # (4 Pods at 25 % and 2 at 50 % both read exactly 1.0: the exact figure is 1.500.)
     full = world.wait(lambda: (v := world.metric()) is not None and 1.45 <= v <= 1.55 and v,

@@ -28,7 +28,12 @@ def measured(living_plane, tmp_path_factory):
         create_service(env, SLOW, replicas=3)
         create_service(env, FAST, replicas=3, pod_annotations={READY_DELAY_ANNOTATION: "15s"})
         create_service(env, EMPTY, replicas=0)
-        wait_until(lambda: ready_pods(env, SLOW) == 3 and ready_pods(env, FAST) == 3, 150,
+        # Idle Pods would let the HPA scale 3 down to its minimum of 2 before all three
+        # are Ready (30 s scale-down window), leaving 2 samples: hold it at 3.
+        for name in (SLOW, FAST):
+            env.hpas.patch_namespaced_horizontal_pod_autoscaler(
+                name, env.namespace, {"spec": {"minReplicas": 3}})
+        wait_until(lambda: ready_pods(env, SLOW) == 3 and ready_pods(env, FAST) == 3, 240,
                    "3 Ready pods of each service")  # fmt: skip
         origin = math.ceil(time.time() / 60) * 60
         for name in (SLOW, FAST, EMPTY):

@@ -36,7 +36,7 @@ from floorcast import plans, replay_live
 from floorcast.core import backtest as bt
 from floorcast.core import guard, planning
 from floorcast.policy import PolicySpec
-from floorcast.replay_floors import Knobs, sized_loads
+from floorcast.replay_floors import Knobs
 
 
 def guarded(spec: PolicySpec, k: Knobs) -> bool:
@@ -70,18 +70,7 @@ def sized_for(spec: PolicySpec, rolling: bt.Rolling, grid: Sequence[Knobs], *,
     configuration: the planning load (``plans.planning_load``, read on the grid as
     ``plans.refined_load`` does) × event factor × (1 + headroom) — the operator's
     ``controller.accuracy.sized_load``."""
-    j_n, g_n = rolling.point.shape[0], len(grid)
-    sized = sized_loads(spec, rolling, grid).reshape(j_n * g_n, -1)
-    fine = planning.cover_intervals(
-        planning.refine(sized, rolling.step, plan_step, centred=rolling.centred)
-    ).reshape(j_n, g_n, -1)
-    h = fine.shape[2]
-    ev = np.ones((j_n, h))
-    if spec.planned_events:
-        ev = np.stack([
-            plans.policy_event_factors(spec, pd.date_range(t, periods=h, freq=plan_step))
-            for t in rolling.times
-        ])  # fmt: skip
+    fine, ev = replay_live.sized_on_grid(spec, rolling, grid, plan_step=plan_step)
     head = 1.0 + np.array([float(k.headroom) for k in grid])
     return fine * ev[:, None, :] * head[None, :, None]
 

@@ -50,6 +50,26 @@ def window_needs(
     on the planning grid, per forecast and configuration: what ``correction``
     multiplies by the factor. ``band``: the load the policy plans on (its upper band
     when it asks), else the forecast's value."""
+    fine, ev = sized_on_grid(spec, rolling, grid, plan_step=plan_step, band=band)
+    j_n, g_n, h = fine.shape
+    out = np.empty((j_n, g_n, h))
+    for g, k in enumerate(grid):
+        per = per_replica * k.target / base_target
+        need = fine[:, g] * ev * (1.0 + float(k.headroom)) / per
+        lead = planning.window_steps(pd.Timedelta(k.lead), plan_step)
+        hold = planning.window_steps(pd.Timedelta(k.hold), plan_step)
+        out[:, g, :] = planning.sliding_max(need, hold, lead)
+    return out
+
+
+def sized_on_grid(spec: PolicySpec, rolling: bt.Rolling, grid: Sequence[Knobs], *,
+                  plan_step: pd.Timedelta,
+                  band: bool = True) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
+    """((J, G, H) the load each forecast's floor is sized on, read on the planning grid
+    as ``plans.refined_load`` reads it, per configuration; (J, H) the planned events'
+    factor at each grid instant). ``band=False``: the forecast's value instead. Shared
+    by the live correction's need and the guard's sized load, so both read the grid
+    the planner does."""
     j_n, g_n = rolling.point.shape[0], len(grid)
     if band:
         sized = sized_loads(spec, rolling, grid).reshape(j_n * g_n, -1)
@@ -65,14 +85,7 @@ def window_needs(
             plans.policy_event_factors(spec, pd.date_range(t, periods=h, freq=plan_step))
             for t in rolling.times
         ])  # fmt: skip
-    out = np.empty((j_n, g_n, h))
-    for g, k in enumerate(grid):
-        per = per_replica * k.target / base_target
-        need = fine[:, g] * ev * (1.0 + float(k.headroom)) / per
-        lead = planning.window_steps(pd.Timedelta(k.lead), plan_step)
-        hold = planning.window_steps(pd.Timedelta(k.hold), plan_step)
-        out[:, g, :] = planning.sliding_max(need, hold, lead)
-    return out
+    return fine, ev
 
 
 def at_syncs(

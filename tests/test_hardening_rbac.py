@@ -1,11 +1,10 @@
 """Issue #14, item 6: the operator's RBAC is exactly the verbs its code calls.
 
 The calls are read from the source (every ``*_namespaced_*`` client method in the
-operator's adapters) plus what kopf needs for the resources it watches: list + watch,
-and merge patches on policies for the finalizer and its bookkeeping annotations (kopf
-docs, "Resources"/"Finalizers"; kopf watches with list+watch and never PUTs — from
-memory of kopf's source). e2e/test_operator*.py then run the real operator with
-exactly these rules, so a rule too few fails there and a rule too many fails here.
+operator's adapters) plus list + watch for each kind the operator's informers watch
+(controller/watches.py; kopf itself watches nothing, so it needs nothing).
+e2e/test_operator*.py then run the real operator with exactly these rules, so a rule
+too few fails there and a rule too many fails here.
 """
 
 from __future__ import annotations
@@ -33,16 +32,13 @@ KINDS = {
 }
 VERBS = {"read": "get", "get": "get", "patch": "patch", "create": "create",
          "list": "list", "replace": "update", "delete": "delete"}  # fmt: skip
-#: What kopf itself does on the resources handlers.py registers.
-KOPF = {
-    ("floorcast.dev", "forecastscalingpolicies", "list"),
-    ("floorcast.dev", "forecastscalingpolicies", "watch"),
-    ("floorcast.dev", "forecastscalingpolicies", "patch"),
-    ("", "configmaps", "list"),
-    ("", "configmaps", "watch"),
-    ("autoscaling", "horizontalpodautoscalers", "list"),
-    ("autoscaling", "horizontalpodautoscalers", "watch"),
-}
+
+
+def watched() -> set[tuple[str, str, str]]:
+    """list + watch on each kind the informers watch (controller/watches.py)."""
+    from floorcast.controller.watches import KINDS as WATCHED
+
+    return {(g, plural, v) for g, _, plural, _, _ in WATCHED for v in ("list", "watch")}
 
 
 def called() -> set[tuple[str, str, str]]:
@@ -73,15 +69,15 @@ def test_the_scan_finds_the_known_calls():
     assert ("", "pods", "list") in got and ("apps", "replicasets", "list") in got
 
 
-def test_rbac_is_exactly_what_the_code_and_kopf_use():
-    assert granted() == called() | KOPF
+def test_rbac_is_exactly_what_the_code_and_the_watches_use():
+    assert granted() == called() | watched()
 
 
 def test_no_update_or_delete_anywhere_and_hpa_list_watch_only_for_the_watch():
     # Issue #14 cut verbs granted but never used; list/watch on HPAs came back with the
-    # HPA watch (controller/handlers.py registers it), and only because of it.
+    # HPA watch (controller/watches.py), and only because of it.
     g = granted()
-    assert "_HPA" in (SRC / "controller" / "handlers.py").read_text()
+    assert ("autoscaling", "horizontalpodautoscalers", "watch") in watched()
     assert {v for (_, r, v) in g if r == "horizontalpodautoscalers"} == {
         "get", "list", "watch", "patch"}
     assert not any(v in ("update", "delete") for (_, _, v) in g)

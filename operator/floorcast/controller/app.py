@@ -1,9 +1,10 @@
 """Start the operator in-process with the project's settings (what `floorcast run` calls).
 
-kopf's settings that matter here: no kopf-posted Events (we post our own, and an idle
-operator must make no writes), progress kept in annotations (the status schema would
-prune kopf's own status fields), short watch timeouts so a restarted API server is
-noticed quickly, and standalone mode (see handlers.py).
+kopf runs the process: login, start-up and clean-up, the liveness endpoint and log
+format. The watches are floorcast's own informers (controller/informer.py explains
+why: kopf's index barrier costs the square of the objects at start-up), started from
+kopf's start-up hook; the reconcile workers start once every informer has listed.
+kopf itself watches no resource, so it posts nothing and patches nothing.
 
 With ``--leader-elect LEASE`` several replicas may run: each waits on standby (serving
 /healthz so its liveness probe passes) until it holds the Lease (controller/leader.py),
@@ -26,9 +27,8 @@ import kopf
 from kubernetes import client as k8s
 from kubernetes import config as k8s_config
 
-from floorcast.controller import memory, metrics
+from floorcast.controller import memory, metrics, watches
 from floorcast.controller.connections import bounded_session, connection_limit
-from floorcast.controller.handlers import register
 from floorcast.controller.leader import Elector, LeaseConfig, keep_leading, wait_for_leadership
 from floorcast.controller.reconcile import Runtime
 from floorcast.controller.schedule import Periods
@@ -48,7 +48,9 @@ def api_client(settings: Settings) -> k8s.ApiClient:
             k8s_config.load_incluster_config(client_configuration=cfg)
         except k8s_config.ConfigException:
             k8s_config.load_kube_config(client_configuration=cfg)
-    cfg.connection_pool_maxsize = 32  # kopf runs sync handlers on a thread pool
+    # The informers' watch streams hold a connection each; the workers, lease renewal
+    # and lead-time reads share the rest (controller/connections.py).
+    cfg.connection_pool_maxsize = connection_limit(settings)
     return k8s.ApiClient(cfg)
 
 
@@ -127,8 +129,12 @@ def run(settings: Settings) -> None:
     rt = Runtime(settings=settings, api=api_client(settings), periods=Periods(
         resync=settings.interval_seconds, observe=settings.observe_interval_seconds,
         unwatched=settings.observe_interval_seconds))  # fmt: skip
-    register(registry, rt)
     workers = Workers(rt, count=settings.workers)
+    informers = watches.informers(rt)
+
+    def begin() -> None:
+        watches.start(rt, informers)
+        workers.start()
 
     @kopf.on.login(registry=registry)
     async def login(**kwargs: Any) -> kopf.AiohttpSession | None:
@@ -144,25 +150,14 @@ def run(settings: Settings) -> None:
         # No CRD/namespace watches: fewer connections and no cluster-wide RBAC. The CRD
         # must be installed before the operator starts (the chart does that).
         settings.scanning.disabled = True
-        settings.persistence.progress_storage = kopf.AnnotationsProgressStorage(
-            prefix="floorcast.dev"
-        )
-        settings.persistence.diffbase_storage = kopf.AnnotationsDiffBaseStorage(
-            prefix="floorcast.dev", key="last-handled-configuration"
-        )
-        # Not our finalizer's name: kopf releases its own finalizer from any object being
-        # deleted that it has no deletion handler for, and the operator's finalizer
-        # (kube/finalizer.py) must stay until the baseline is back.
-        settings.persistence.finalizer = "floorcast.dev/kopf-unused"
-        settings.watching.server_timeout = 60
-        settings.watching.client_timeout = 90
-        settings.watching.connect_timeout = 5
         settings.networking.request_timeout = 30
-        settings.execution.max_workers = 8
-        workers.start()
+        # Not blocking the hook: the first listings may take a while at 10,000 policies
+        # and kopf's liveness endpoint should answer meanwhile.
+        threading.Thread(target=begin, daemon=True, name="start-up").start()
 
     @kopf.on.cleanup(registry=registry)
     def stop_workers(**_: Any) -> None:
+        watches.stop(informers)
         workers.stop()
 
     if settings.metrics_port:

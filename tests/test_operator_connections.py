@@ -20,7 +20,11 @@ from floorcast.controller.settings import Settings
 
 
 def test_limit_counts_three_watch_streams_per_namespace() -> None:
-    # Policies, forecast ConfigMaps and HPAs (controller/handlers.py).
+    # Policies, forecast ConfigMaps and HPAs: one informer each (controller/watches.py).
+    from floorcast.controller.connections import WATCHED_RESOURCES
+    from floorcast.controller.watches import KINDS
+
+    assert WATCHED_RESOURCES == len(KINDS) == 3
     assert connection_limit(Settings()) == 3 + 16  # cluster-wide: one watch per resource
     assert connection_limit(Settings(namespaces=("a", "b", "c"))) == 9 + 16
     assert connection_limit(Settings(namespaces=("a",), max_api_connections=4)) == 3 + 4

@@ -3,12 +3,16 @@
 Per policy: a Deployment, an HPA (baseline minReplicas 2), a labelled forecast
 ConfigMap (flat load 1.5: floor = baseline) and an Enforce policy. Reports:
 
-* set-up: how long creating the 4 × N objects and the first full reconcile took;
+* set-up: how long creating the 4 × N objects and the first full reconcile took
+  (target at 10,000 policies: all Ready within 120 s);
 * reconcile latency after a forecast ConfigMap change (p50/p95 over ``--changes``
   ConfigMaps, changed one every ``--gap`` seconds): from the ConfigMap update's
-  response to the moment an HPA watch sees that HPA's minReplicas become 7;
-* API writes per minute when nothing changes (target 0), see ``operator_writes``;
-* operator RSS from /proc (VmRSS now, VmHWM peak; target < 250 MiB).
+  response to the moment an HPA watch sees that HPA's minReplicas become 7 (target
+  p95 ≤ 1 s);
+* API writes per minute and reconciles per second when nothing changes (targets 0 and
+  ≤ 20 at 10,000), over a window inside the first resync cycle (``--idle-after``), so
+  the resyncs are in it;
+* operator RSS from /proc (VmRSS now, VmHWM peak; target ≤ 600 MiB at 10,000).
 
 Writes are counted with the API server's own ``apiserver_request_total`` (scraped from
 /metrics with the admin client before and after the idle window), restricted to what
@@ -133,11 +137,10 @@ QUIET_S = 15.0
 def quiesce(cp: ControlPlane, limit: float = 900) -> float:
     """Wait until the operator makes no write (apiserver_writes) for QUIET_S seconds.
 
-    Ready and settled is not the end of start-up at a few thousand policies: kopf may
-    still be re-processing events of its own flood (measured at 2000 policies: a second
-    pass of annotation patches, most of them no-ops that leave resourceVersion alone,
-    ending about 90 s after all were Ready), and those would be counted as idle writes.
-    The idle window starts only once the API server has seen the operator go quiet."""
+    Ready is not quite the end of start-up writes: the last few status patches and
+    their Events may still be in flight (when kopf still watched, it made a second pass
+    of annotation patches ending about 90 s after all 2000 policies were Ready). The
+    idle window starts only once the API server has seen the operator go quiet."""
     began = time.monotonic()
     last, _ = apiserver_writes(cp)
     since = time.monotonic()
@@ -215,7 +218,12 @@ def main() -> None:
     ap.add_argument("--gap", type=float, default=0.5, help="seconds between ConfigMap changes")
     ap.add_argument("--idle", type=float, default=60.0, help="idle window, seconds")
     ap.add_argument("--interval", default="10m", help="the operator's safety-net resync")
+    ap.add_argument("--idle-after", type=float, default=None,
+                    help="seconds from the operator's start to the idle window "
+                         "(default 0.75 x interval: inside the first resync cycle)")  # fmt: skip
     args = ap.parse_args()
+    if args.idle_after is None:
+        args.idle_after = 0.75 * pd.Timedelta(args.interval).total_seconds()
     n, changes = args.policies, min(args.changes, args.policies)
 
     # HPA sync 15 s: kube-controller-manager's default (its --help, "--horizontal-pod-
@@ -255,27 +263,8 @@ def main() -> None:
         ready_s = time.monotonic() - began
         print(f"all {n} policies Ready {ready_s:.1f}s after start", flush=True)
         quiet = quiesce(cp)
-        print(f"no operator write for {QUIET_S:.0f}s, {quiet:.1f}s later (kopf's trailing "
-              "start-up work done)", flush=True)  # fmt: skip
-
-        ours0, all0 = apiserver_writes(cp)
-        ev0 = floorcast_events(api)
-        rec0 = reconciles(mport)
-        time.sleep(args.idle)
-        rec1 = reconciles(mport)
-        ours1, all1 = apiserver_writes(cp)
-        ev1 = floorcast_events(api)
-        idle_by = delta(ours1, ours0)
-        idle = (sum(idle_by.values()) + ev1 - ev0) * 60 / args.idle
-        print(f"idle writes by kind: {idle_by}", flush=True)
-        n_idle = sum(idle_by.values())
-        print(f"idle {args.idle:.0f}s: operator-writable writes {n_idle:.0f}, floorcast "
-              f"Events {ev1 - ev0}, cluster-wide writes {all1 - all0:.0f} (controller-manager "
-              f"included) -> idle_writes_per_min={idle:.1f}", flush=True)  # fmt: skip
-        rate = (rec1 - rec0) / args.idle
-        print(f"steady reconciles: {rec1 - rec0:.0f} in {args.idle:.0f}s -> "
-              f"reconciles_per_s={rate:.2f}", flush=True)  # fmt: skip
-        rss_idle, _ = rss_mib(proc.pid)
+        print(f"no operator write for {QUIET_S:.0f}s, {quiet:.1f}s later (start-up writes "
+              "done)", flush=True)  # fmt: skip
 
         busy0, _ = apiserver_writes(cp)
         seen: dict[str, float] = {}
@@ -306,6 +295,33 @@ def main() -> None:
         p95 = lat[min(len(lat) - 1, int(0.95 * len(lat)))] if lat else float("nan")
         print(f"latency over {len(lat)} changes (missing {missing}): p50 {p50:.2f}s p95 "
               f"{p95:.2f}s max {max(lat, default=float('nan')):.2f}s", flush=True)  # fmt: skip
+        # The idle window lies inside the first resync cycle (slots from half a period
+        # after each first reconcile on, controller/schedule.py), so its reconciles are
+        # the steady resync rate and its writes include what resyncs write (nothing).
+        idle_at = began + args.idle_after
+        if time.monotonic() < idle_at:
+            print(f"waiting {idle_at - time.monotonic():.0f}s for the resync cycle "
+                  f"(--idle-after {args.idle_after:.0f}s from start)", flush=True)
+            time.sleep(idle_at - time.monotonic())
+        ours0, all0 = apiserver_writes(cp)
+        ev0 = floorcast_events(api)
+        rec0 = reconciles(mport)
+        time.sleep(args.idle)
+        rec1 = reconciles(mport)
+        ours1, all1 = apiserver_writes(cp)
+        ev1 = floorcast_events(api)
+        idle_by = delta(ours1, ours0)
+        idle = (sum(idle_by.values()) + ev1 - ev0) * 60 / args.idle
+        print(f"idle writes by kind: {idle_by}", flush=True)
+        n_idle = sum(idle_by.values())
+        print(f"idle {args.idle:.0f}s: operator-writable writes {n_idle:.0f}, floorcast "
+              f"Events {ev1 - ev0}, cluster-wide writes {all1 - all0:.0f} (controller-manager "
+              f"included) -> idle_writes_per_min={idle:.1f}", flush=True)  # fmt: skip
+        rate = (rec1 - rec0) / args.idle
+        print(f"steady reconciles: {rec1 - rec0:.0f} in {args.idle:.0f}s -> "
+              f"reconciles_per_s={rate:.2f}", flush=True)  # fmt: skip
+        rss_idle, _ = rss_mib(proc.pid)
+
         rss, hwm = rss_mib(proc.pid)
         print(f"operator RSS: {rss_idle:.0f} MiB idle, {rss:.0f} MiB now, {hwm:.0f} MiB peak "
               f"(VmHWM)", flush=True)  # fmt: skip

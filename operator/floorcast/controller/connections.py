@@ -1,18 +1,16 @@
-"""A bounded connection pool for kopf's own API calls (watch streams and its patches).
+"""How many connections the operator keeps to the API server.
 
-kopf's built-in aiohttp session has no connection limit (``TCPConnector(limit=0)``), so
-the start-up flood — every policy resumed at once, each with a kopf patch of its
-annotations — opens one TLS connection per request in flight. Measured with
-tests/perf/bench_operator.py at 500 policies: 513-608 sockets open during the flood and
-an RSS peak (VmHWM) of 317-338 MiB, about 0.35 MiB per connection, none of it Python
-objects (tracemalloc saw 88 MiB in all). With the pool capped at 20, the same run
-peaked at 174 MiB and settled sooner (33 s against 36-57 s): requests wait for a free
-connection instead of each paying a handshake.
+Each informer (controller/watches.py: policies, labelled ConfigMaps, HPAs, once per
+namespace given or once cluster-wide) holds one connection for its watch stream; the
+reconcile workers, the lease renewal and the lead-time reads share the rest, at most
+``--max-api-connections``. ``connection_limit`` sizes the sync client's pool
+(app.py) and kopf's own session (which, watching nothing, hardly uses it).
 
-Watch streams hold their connection for up to ``server_timeout``, so the cap is the
-watches plus ``max_api_connections``: a cap below the watch count would starve every
-patch behind them. kopf watches two resources here (policies, labelled ConfigMaps),
-once per namespace it was given or once cluster-wide.
+Why a cap at all: unbounded, a start-up flood opens one TLS connection per request in
+flight. Measured with tests/perf/bench_operator.py at 500 policies when kopf still
+watched: 513-608 sockets open during the flood and an RSS peak (VmHWM) of 317-338 MiB,
+about 0.35 MiB per connection, none of it Python objects (tracemalloc saw 88 MiB in
+all). With the pool capped at 20 the same run peaked at 174 MiB.
 """
 
 from __future__ import annotations
@@ -22,7 +20,7 @@ import kopf
 
 from floorcast.controller.settings import Settings
 
-#: Resources kopf watches (see handlers.py): ForecastScalingPolicies, ConfigMaps, HPAs.
+#: Kinds the informers watch (watches.py): ForecastScalingPolicies, ConfigMaps, HPAs.
 WATCHED_RESOURCES = 3
 
 

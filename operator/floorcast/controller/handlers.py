@@ -10,7 +10,7 @@ which says when it wants to run next. So:
 
 * a policy is reconciled when it changes (spec, deletion), when its forecast
   ConfigMap changes, when its HPA's spec or our annotations on it change, at its next
-  planned floor change, when its forecast goes stale, and on a slow jittered resync
+  planned floor change, when its forecast goes stale, and in its resync slot once per period
   (``--interval``, default 10 min);
 * at start the policies' listing queues every policy, nearest planned change first,
   and the workers start only once all three kinds have listed (app.py);

@@ -24,7 +24,7 @@ missing was deleted meanwhile, what changed wakes its policies, as an event woul
 from __future__ import annotations
 
 import logging
-from collections.abc import Hashable
+from collections.abc import Callable, Hashable
 from typing import Any
 
 import pandas as pd
@@ -92,12 +92,17 @@ def configmap_event(rt: Runtime, kind: str, obj: dict[str, Any]) -> None:
             rt.queue.add(policy)
 
 
-def configmaps_listed(rt: Runtime, items: list[dict[str, Any]]) -> None:
-    seen = {key_of(o) for o in items}
+def _relisted(rt: Runtime, items: list[dict[str, Any]], known: list[Key],
+              event: Callable[[Runtime, str, dict[str, Any]], None]) -> None:  # fmt: skip
+    """A listing as events: every item an ADDED, every known key it lacks a DELETED."""
     for obj in items:
-        configmap_event(rt, "ADDED", obj)
-    for key in set(rt.caches.configmap_keys()) - seen:
-        configmap_event(rt, "DELETED", {"metadata": {"namespace": key[0], "name": key[1]}})
+        event(rt, "ADDED", obj)
+    for key in set(known) - {key_of(o) for o in items}:
+        event(rt, "DELETED", {"metadata": {"namespace": key[0], "name": key[1]}})
+
+
+def configmaps_listed(rt: Runtime, items: list[dict[str, Any]]) -> None:
+    _relisted(rt, items, rt.caches.configmap_keys(), configmap_event)
 
 
 # HPAs ------------------------------------------------------------------------------
@@ -113,8 +118,4 @@ def hpa_event(rt: Runtime, kind: str, obj: dict[str, Any]) -> None:
 
 
 def hpas_listed(rt: Runtime, items: list[dict[str, Any]]) -> None:
-    seen = {key_of(o) for o in items}
-    for obj in items:
-        hpa_event(rt, "ADDED", obj)
-    for key in set(rt.caches.hpa_keys()) - seen:
-        hpa_event(rt, "DELETED", {"metadata": {"namespace": key[0], "name": key[1]}})
+    _relisted(rt, items, rt.caches.hpa_keys(), hpa_event)

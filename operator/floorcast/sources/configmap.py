@@ -59,7 +59,7 @@ def public_message(e: InputError, source: str) -> str:
 
 
 #: Parsed points all caches together may hold: 4 million points are about 100 MiB
-#: (values, bands, the parse's own arrays), a fifth of the chart's 512Mi limit. Without
+#: (values, bands, the parse's own arrays), an eighth of the chart's 768Mi limit. Without
 #: it, one tenant rewriting a 1 MiB forecast could fill 2048 cache entries with
 #: superseded versions (about 2 GiB).
 MAX_CACHED_POINTS = 4_000_000
